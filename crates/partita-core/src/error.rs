@@ -1,0 +1,267 @@
+//! Set-up errors. Run-time conditions on the audio thread are counters, not errors (see [`crate::Monitor`]).
+
+use std::fmt;
+
+/// Why an [`ImpulseResponse`](crate::ImpulseResponse) was refused.
+#[derive(Debug, Clone, PartialEq)]
+pub enum IrError {
+    /// The channel list was empty.
+    NoChannels,
+    /// The channels hold no taps at all.
+    Empty,
+    /// Channels must all have the same number of taps.
+    UnequalLengths {
+        /// Index of the first channel whose length differs from channel 0.
+        channel: usize,
+        /// Its length in frames.
+        frames: usize,
+        /// Length of channel 0.
+        expected: usize,
+    },
+    /// A tap is NaN or infinite.
+    NonFinite {
+        /// Channel of the first bad tap.
+        channel: usize,
+        /// Frame index of the first bad tap.
+        frame: usize,
+    },
+    /// The sample rate was zero.
+    SampleRateZero,
+}
+
+impl fmt::Display for IrError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::NoChannels => write!(f, "impulse response has no channels; give at least one"),
+            Self::Empty => write!(f, "impulse response has 0 taps; give at least one tap per channel"),
+            Self::UnequalLengths { channel, frames, expected } => write!(
+                f,
+                "impulse response channel {channel} has {frames} taps but channel 0 has {expected}; \
+                 pad the channels to one length"
+            ),
+            Self::NonFinite { channel, frame } => write!(
+                f,
+                "impulse response channel {channel} has a NaN or infinite tap at frame {frame}"
+            ),
+            Self::SampleRateZero => write!(f, "impulse response sample rate is 0 Hz"),
+        }
+    }
+}
+
+impl std::error::Error for IrError {}
+
+/// Why a [`Plan`](crate::Plan) cannot be built or run.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum PlanError {
+    /// The engine block size was zero.
+    BlockFramesZero,
+    /// The IR length to plan for was zero.
+    IrFramesZero,
+    /// A level has no partitions.
+    NoPartitions {
+        /// Level index.
+        level: usize,
+    },
+    /// A level's block is not a whole multiple of the engine block.
+    LevelBlockNotMultiple {
+        /// Level index.
+        level: usize,
+        /// The level's block size.
+        level_block_frames: usize,
+        /// The engine block size.
+        block_frames: usize,
+    },
+    /// Levels must tile the IR without gaps or overlaps, starting where the direct-form head ends.
+    Gap {
+        /// Level index.
+        level: usize,
+        /// Where the level had to start.
+        expected_offset_frames: usize,
+        /// Where it starts.
+        offset_frames: usize,
+    },
+    /// A level starts too early for its result to be ready in time.
+    OffsetRule {
+        /// Level index.
+        level: usize,
+        /// The level's offset.
+        offset_frames: usize,
+        /// The smallest offset the rule allows.
+        required_frames: usize,
+        /// The rule in words, for example `s >= N - B + D`.
+        rule: &'static str,
+    },
+    /// The head and levels cover fewer taps than the IR has.
+    TooShort {
+        /// Taps covered by the plan.
+        covered_frames: usize,
+        /// Taps in the IR.
+        ir_frames: usize,
+    },
+    /// No layout satisfies the request (for example a latency budget below one block).
+    Infeasible {
+        /// What could not be met.
+        reason: String,
+    },
+}
+
+impl fmt::Display for PlanError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::BlockFramesZero => write!(f, "block size is 0 frames; use at least 1"),
+            Self::IrFramesZero => write!(f, "impulse response length is 0 frames; nothing to plan"),
+            Self::NoPartitions { level } => write!(f, "level {level} has 0 partitions; give at least 1"),
+            Self::LevelBlockNotMultiple { level, level_block_frames, block_frames } => write!(
+                f,
+                "level {level} block of {level_block_frames} frames is not a multiple of the engine \
+                 block of {block_frames} frames"
+            ),
+            Self::Gap { level, expected_offset_frames, offset_frames } => write!(
+                f,
+                "level {level} starts at frame {offset_frames} but the previous part of the plan ends \
+                 at frame {expected_offset_frames}; levels must tile the impulse response"
+            ),
+            Self::OffsetRule { level, offset_frames, required_frames, rule } => write!(
+                f,
+                "level {level} starts at frame {offset_frames}, before frame {required_frames} where \
+                 the offset rule {rule} lets it start; its result would be late"
+            ),
+            Self::TooShort { covered_frames, ir_frames } => write!(
+                f,
+                "plan covers {covered_frames} taps but the impulse response has {ir_frames}; add partitions"
+            ),
+            Self::Infeasible { reason } => write!(f, "no plan fits: {reason}"),
+        }
+    }
+}
+
+impl std::error::Error for PlanError {}
+
+/// Why a routing does not fit an impulse response.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum RoutingError {
+    /// The routing needs a different number of IR channels.
+    ChannelCount {
+        /// The routing, in words.
+        routing: String,
+        /// IR channel counts the routing accepts.
+        expected: &'static str,
+        /// IR channels given.
+        got: usize,
+    },
+    /// A matrix needs at least one input and one output.
+    EmptyMatrix,
+}
+
+impl fmt::Display for RoutingError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::ChannelCount { routing, expected, got } => write!(
+                f,
+                "{routing} routing needs an impulse response with {expected} channel(s), got {got}"
+            ),
+            Self::EmptyMatrix => write!(f, "a routing matrix needs at least 1 input and 1 output"),
+        }
+    }
+}
+
+impl std::error::Error for RoutingError {}
+
+/// Why an [`Engine`](crate::Engine) could not be built.
+#[derive(Debug, Clone, PartialEq)]
+pub enum EngineError {
+    /// The plan is invalid.
+    Plan(PlanError),
+    /// The routing does not fit the IR.
+    Routing(RoutingError),
+    /// The IR is longer than the plan covers.
+    IrLongerThanPlan {
+        /// Taps in the IR.
+        ir_frames: usize,
+        /// Taps the plan covers.
+        plan_frames: usize,
+    },
+    /// `max_host_frames` was zero.
+    MaxHostFramesZero,
+}
+
+impl fmt::Display for EngineError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::Plan(e) => write!(f, "invalid plan: {e}"),
+            Self::Routing(e) => write!(f, "invalid routing: {e}"),
+            Self::IrLongerThanPlan { ir_frames, plan_frames } => write!(
+                f,
+                "impulse response has {ir_frames} taps but the plan covers {plan_frames}; \
+                 plan for at least {ir_frames} frames"
+            ),
+            Self::MaxHostFramesZero => write!(f, "max_host_frames is 0; hosts call with at least 1 frame"),
+        }
+    }
+}
+
+impl std::error::Error for EngineError {
+    fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
+        match self {
+            Self::Plan(e) => Some(e),
+            Self::Routing(e) => Some(e),
+            _ => None,
+        }
+    }
+}
+
+impl From<PlanError> for EngineError {
+    fn from(e: PlanError) -> Self {
+        Self::Plan(e)
+    }
+}
+
+impl From<RoutingError> for EngineError {
+    fn from(e: RoutingError) -> Self {
+        Self::Routing(e)
+    }
+}
+
+/// A `process()` call the engine could not honour. `Copy`, no heap: safe to return on the audio thread.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ProcessError {
+    /// The number of input or output buffers differs from the routing.
+    ChannelMismatch {
+        /// Input buffers the routing needs.
+        inputs_expected: usize,
+        /// Output buffers the routing needs.
+        outputs_expected: usize,
+        /// Input buffers given.
+        inputs_got: usize,
+        /// Output buffers given.
+        outputs_got: usize,
+    },
+    /// Buffers of one call have different lengths.
+    UnequalBuffers,
+    /// The call is longer than `max_host_frames`.
+    TooManyFrames {
+        /// The engine's limit.
+        max_host_frames: usize,
+        /// Frames in this call.
+        got: usize,
+    },
+}
+
+impl fmt::Display for ProcessError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::ChannelMismatch { inputs_expected, outputs_expected, inputs_got, outputs_got } => write!(
+                f,
+                "engine needs {inputs_expected} input and {outputs_expected} output buffers, \
+                 got {inputs_got} and {outputs_got}"
+            ),
+            Self::UnequalBuffers => write!(f, "all buffers of one call must have the same length"),
+            Self::TooManyFrames { max_host_frames, got } => write!(
+                f,
+                "call has {got} frames but the engine was built for at most {max_host_frames}"
+            ),
+        }
+    }
+}
+
+impl std::error::Error for ProcessError {}

@@ -1,0 +1,47 @@
+//! # partita-core
+//!
+//! Partitioned overlap-save FFT convolution for real-time audio: a direct-form oracle, validated impulse
+//! responses, routings (mono, stereo, true stereo, general matrices), partition plans and the streaming
+//! [`Engine`] whose [`process`](Engine::process) never allocates, locks or waits.
+//!
+//! ```
+//! use partita_core::{naive, Engine, ImpulseResponse, Plan, Routing};
+//!
+//! let taps = partita_core::synth::decaying_noise(1000, 400.0, 7);
+//! let ir = ImpulseResponse::new(vec![taps.clone()], 48_000)?;
+//! let plan = Plan::uniform(64, ir.frames())?;
+//! let mut engine = Engine::new(&plan, &ir, Routing::Mono, 256)?;
+//!
+//! let x = partita_core::synth::Noise::new(1).vec(2000);
+//! let mut y = vec![0.0f32; x.len()];
+//! for (xc, yc) in x.chunks(100).zip(y.chunks_mut(100)) {
+//!     engine.process(&[xc], &mut [yc])?;
+//! }
+//! // Output is the convolution delayed by the block latency.
+//! let want = naive::convolve(&x, &taps);
+//! let lat = engine.latency_frames();
+//! assert!((y[1500] as f64 - want[1500 - lat]).abs() < 1e-4);
+//! # Ok::<(), Box<dyn std::error::Error>>(())
+//! ```
+#![warn(missing_docs)]
+#![deny(unsafe_op_in_unsafe_fn)]
+
+pub mod denormal;
+mod engine;
+mod error;
+mod fdl;
+mod head;
+mod ir;
+pub mod kernel;
+pub mod naive;
+mod plan;
+mod ring;
+mod routing;
+pub mod synth;
+
+pub use engine::{Engine, EngineOptions, Monitor};
+pub use error::{EngineError, IrError, PlanError, ProcessError, RoutingError};
+pub use ir::ImpulseResponse;
+pub use kernel::Kernel;
+pub use plan::{Level, Plan, Schedule};
+pub use routing::{Path, RouteMap, Routing};

@@ -1,0 +1,97 @@
+//! Helpers shared by the core test binaries.
+#![allow(dead_code)]
+
+use partita_core::synth::Noise;
+use partita_core::{naive, Engine, ImpulseResponse, Plan, Routing};
+
+/// Every routing with an IR channel count that fits it.
+pub fn routings() -> Vec<(Routing, usize)> {
+    vec![
+        (Routing::Mono, 1),
+        (Routing::MonoToStereo, 2),
+        (Routing::Stereo, 1),
+        (Routing::Stereo, 2),
+        (Routing::TrueStereo, 4),
+        (Routing::Matrix { inputs: 2, outputs: 3 }, 6),
+        (Routing::Matrix { inputs: 3, outputs: 1 }, 3),
+    ]
+}
+
+/// A random IR of `channels` x `frames` taps.
+pub fn random_ir(channels: usize, frames: usize, seed: u64) -> ImpulseResponse {
+    let mut n = Noise::new(seed);
+    ImpulseResponse::new((0..channels).map(|_| n.vec(frames)).collect(), 48_000).unwrap()
+}
+
+/// Planar random input, `channels` x `frames`.
+pub fn random_input(channels: usize, frames: usize, seed: u64) -> Vec<Vec<f32>> {
+    let mut n = Noise::new(seed);
+    (0..channels).map(|_| n.vec(frames)).collect()
+}
+
+/// Streams `input` (zero-padded to `total` frames) through `engine` in host calls whose sizes come from
+/// `next_size`, and returns `total` output frames per output.
+pub fn stream(engine: &mut Engine, input: &[Vec<f32>], total: usize, mut next_size: impl FnMut() -> usize) -> Vec<Vec<f32>> {
+    let padded: Vec<Vec<f32>> = input
+        .iter()
+        .map(|x| {
+            let mut v = x.clone();
+            v.resize(total, 0.0);
+            v
+        })
+        .collect();
+    let mut out = vec![vec![0.0f32; total]; engine.outputs()];
+    let mut at = 0;
+    while at < total {
+        let n = next_size().clamp(1, engine.max_host_frames()).min(total - at);
+        let ins: Vec<&[f32]> = padded.iter().map(|x| &x[at..at + n]).collect();
+        let mut outs: Vec<&mut [f32]> = out.iter_mut().map(|y| &mut y[at..at + n]).collect();
+        engine.process(&ins, &mut outs).unwrap();
+        at += n;
+    }
+    out
+}
+
+/// Random host-call sizes in 1..=max, seeded.
+pub fn random_sizes(seed: u64, max: usize) -> impl FnMut() -> usize {
+    let mut n = Noise::new(seed);
+    move || n.range(1, max)
+}
+
+/// The oracle's output for `input` through `ir` with `routing`, delayed by `latency` frames, `total` long.
+pub fn oracle(input: &[Vec<f32>], ir: &ImpulseResponse, routing: Routing, latency: usize, total: usize) -> Vec<Vec<f64>> {
+    let map = routing.resolve(ir.channels()).unwrap();
+    let pairs: Vec<(usize, usize, usize)> = map.paths.iter().map(|p| (p.input, p.output, p.ir_channel)).collect();
+    naive::convolve_routed(input, ir.as_planar(), &pairs, map.outputs)
+        .into_iter()
+        .map(|y| {
+            let mut v = vec![0.0f64; latency];
+            v.extend(y);
+            v.resize(total, 0.0);
+            v
+        })
+        .collect()
+}
+
+/// Builds an engine, streams `input` with random call sizes, and checks every output against the oracle
+/// with the DESIGN.md bound. Returns the worst (max over peak, relative RMS) seen.
+pub fn check_against_oracle(plan: &Plan, ir: &ImpulseResponse, routing: Routing, input_frames: usize, seed: u64) -> (f64, f64) {
+    let max_host = 1 + (seed as usize * 37) % 700;
+    let mut engine = Engine::new(plan, ir, routing, max_host).unwrap();
+    let input = random_input(routing.inputs(), input_frames, seed ^ 0xABCD);
+    let total = input_frames + ir.frames() - 1 + engine.latency_frames();
+    let got = stream(&mut engine, &input, total, random_sizes(seed, max_host));
+    let want = oracle(&input, ir, routing, engine.latency_frames(), total);
+    let mut worst = (0.0f64, 0.0f64);
+    for (o, (g, w)) in got.iter().zip(&want).enumerate() {
+        let e = partita_testkit::ErrorBound::measure(g, w);
+        e.assert_design_bound(&format!(
+            "{routing:?} B={} L={} output {o} plan {:?}",
+            plan.block_frames,
+            ir.frames(),
+            plan.levels
+        ));
+        worst = (worst.0.max(e.max_over_peak), worst.1.max(e.relative_rms));
+    }
+    worst
+}

@@ -1,0 +1,1 @@
+//! WAV I/O and IR preparation (in progress).
