@@ -26,6 +26,7 @@
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
 
+pub mod analysis;
 pub mod denormal;
 mod engine;
 mod error;

@@ -1,0 +1,1 @@
+//! Room-acoustic analysis of impulse responses (in progress).

@@ -1,0 +1,1 @@
+//! Synthetic dry phrases (in progress).

@@ -1,0 +1,1 @@
+//! Synthetic rooms (in progress).
