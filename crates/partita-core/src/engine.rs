@@ -98,7 +98,12 @@ impl Engine {
     /// # Errors
     /// [`EngineError`] when the plan is invalid, the routing does not fit the IR, the IR is longer than the
     /// plan, or `max_host_frames` is 0.
-    pub fn new(plan: &Plan, ir: &ImpulseResponse, routing: Routing, max_host_frames: usize) -> Result<Self, EngineError> {
+    pub fn new(
+        plan: &Plan,
+        ir: &ImpulseResponse,
+        routing: Routing,
+        max_host_frames: usize,
+    ) -> Result<Self, EngineError> {
         Self::with_options(plan, ir, routing, EngineOptions::new(max_host_frames))
     }
 
@@ -185,7 +190,8 @@ impl Engine {
                 // Stagger: level li of group gi completes its input at a different block phase from its
                 // neighbours, so big levels of different groups do not share a callback.
                 let phase_blocks = ((li * groups.len() + gi) as u64) % period_blocks;
-                let shape = LevelShape { n, partitions: level.partitions, delay, lead: due, period_blocks, phase_blocks };
+                let shape =
+                    LevelShape { n, partitions: level.partitions, delay, lead: due, period_blocks, phase_blocks };
                 levels.push(LevelRunner::new(shape, &mut planner, g_inputs.clone(), outputs, level_ir));
             }
         }
@@ -336,6 +342,15 @@ impl Engine {
     /// The plan the engine runs.
     pub fn plan(&self) -> &Plan {
         &self.plan
+    }
+
+    /// Bytes of audio state the engine holds: spectra, delay lines, rings and scratch (not counting
+    /// small fixed-size fields or the FFT plans' twiddle tables).
+    pub fn memory_bytes(&self) -> usize {
+        let rings: usize = self.inputs.iter().chain(&self.outputs).map(|r| 4 * r.len()).sum();
+        rings
+            + self.head.as_ref().map_or(0, Head::memory_bytes)
+            + self.levels.iter().map(LevelRunner::memory_bytes).sum::<usize>()
     }
 
     /// The multiply-accumulate kernel in use.

@@ -39,10 +39,9 @@ impl fmt::Display for IrError {
                 "impulse response channel {channel} has {frames} taps but channel 0 has {expected}; \
                  pad the channels to one length"
             ),
-            Self::NonFinite { channel, frame } => write!(
-                f,
-                "impulse response channel {channel} has a NaN or infinite tap at frame {frame}"
-            ),
+            Self::NonFinite { channel, frame } => {
+                write!(f, "impulse response channel {channel} has a NaN or infinite tap at frame {frame}")
+            }
             Self::SampleRateZero => write!(f, "impulse response sample rate is 0 Hz"),
         }
     }
@@ -126,10 +125,9 @@ impl fmt::Display for PlanError {
                 "level {level} starts at frame {offset_frames}, before frame {required_frames} where \
                  the offset rule {rule} lets it start; its result would be late"
             ),
-            Self::TooShort { covered_frames, ir_frames } => write!(
-                f,
-                "plan covers {covered_frames} taps but the impulse response has {ir_frames}; add partitions"
-            ),
+            Self::TooShort { covered_frames, ir_frames } => {
+                write!(f, "plan covers {covered_frames} taps but the impulse response has {ir_frames}; add partitions")
+            }
             Self::Infeasible { reason } => write!(f, "no plan fits: {reason}"),
         }
     }
@@ -156,10 +154,9 @@ pub enum RoutingError {
 impl fmt::Display for RoutingError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            Self::ChannelCount { routing, expected, got } => write!(
-                f,
-                "{routing} routing needs an impulse response with {expected} channel(s), got {got}"
-            ),
+            Self::ChannelCount { routing, expected, got } => {
+                write!(f, "{routing} routing needs an impulse response with {expected} channel(s), got {got}")
+            }
             Self::EmptyMatrix => write!(f, "a routing matrix needs at least 1 input and 1 output"),
         }
     }
@@ -256,10 +253,9 @@ impl fmt::Display for ProcessError {
                  got {inputs_got} and {outputs_got}"
             ),
             Self::UnequalBuffers => write!(f, "all buffers of one call must have the same length"),
-            Self::TooManyFrames { max_host_frames, got } => write!(
-                f,
-                "call has {got} frames but the engine was built for at most {max_host_frames}"
-            ),
+            Self::TooManyFrames { max_host_frames, got } => {
+                write!(f, "call has {got} frames but the engine was built for at most {max_host_frames}")
+            }
         }
     }
 }

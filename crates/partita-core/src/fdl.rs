@@ -49,6 +49,10 @@ impl Spectra {
         self.re.fill(0.0);
         self.im.fill(0.0);
     }
+
+    fn bytes(&self) -> usize {
+        4 * (self.re.len() + self.im.len())
+    }
 }
 
 /// What one output of a group sums: (index into the group's inputs, index into the group's IR spectra).
@@ -248,13 +252,29 @@ impl LevelRunner {
     }
 
     /// All three steps at once for every output, then delivery.
-    pub(crate) fn run_sync(&mut self, inputs: &[TimeRing], outputs: &mut [TimeRing], now: i64, emit: i64, kernel: Kernel) {
+    pub(crate) fn run_sync(
+        &mut self,
+        inputs: &[TimeRing],
+        outputs: &mut [TimeRing],
+        now: i64,
+        emit: i64,
+        kernel: Kernel,
+    ) {
         self.forward(inputs, now);
         for which in 0..self.outputs.len() {
             self.accumulate(which, kernel);
             self.inverse(which);
         }
         self.deliver(outputs, emit + self.lead as i64);
+    }
+
+    /// Bytes held by the level's spectra and buffers.
+    pub(crate) fn memory_bytes(&self) -> usize {
+        let spectra: usize = self.fdl.iter().chain(&self.ir.spectra).map(Spectra::bytes).sum();
+        let buffers = 4 * (self.time.len() + self.acc_re.len() + self.acc_im.len())
+            + 8 * (self.spec.len() + self.scratch.len())
+            + 4 * self.results.iter().map(Vec::len).sum::<usize>();
+        spectra + buffers
     }
 
     pub(crate) fn clear(&mut self) {

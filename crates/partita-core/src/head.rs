@@ -43,6 +43,10 @@ impl Head {
         }
     }
 
+    pub(crate) fn memory_bytes(&self) -> usize {
+        4 * (self.window.len() + self.sum.len() + self.paths.iter().map(|p| p.2.len()).sum::<usize>())
+    }
+
     /// Overwrites scratch with garbage (tests prove it does not matter).
     pub(crate) fn dirty(&mut self, value: f32) {
         self.window.fill(value);
@@ -51,7 +55,7 @@ impl Head {
 }
 
 /// Dot product with eight independent accumulators so the compiler can vectorize it.
-fn dot(a: &[f32], b: &[f32]) -> f32 {
+pub(crate) fn dot(a: &[f32], b: &[f32]) -> f32 {
     let mut acc = [0.0f32; 8];
     let chunks = a.len() / 8;
     for (ca, cb) in a.chunks_exact(8).zip(b.chunks_exact(8)) {

@@ -27,6 +27,7 @@
 #![deny(unsafe_op_in_unsafe_fn)]
 
 pub mod analysis;
+pub mod cost;
 pub mod denormal;
 mod engine;
 mod error;
@@ -36,13 +37,16 @@ mod ir;
 pub mod kernel;
 pub mod naive;
 mod plan;
+mod planner;
 mod ring;
 mod routing;
 pub mod synth;
 
+pub use cost::{CostModel, MachineCosts, Shape};
 pub use engine::{Engine, EngineOptions, Monitor};
 pub use error::{EngineError, IrError, PlanError, ProcessError, RoutingError};
 pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
 pub use plan::{Level, Plan, Schedule};
+pub use planner::{PlanMode, Planner};
 pub use routing::{Path, RouteMap, Routing};

@@ -17,7 +17,6 @@ impl TimeRing {
         Self { data: vec![0.0; len], mask: len - 1 }
     }
 
-    #[cfg(test)]
     pub(crate) fn len(&self) -> usize {
         self.data.len()
     }

@@ -51,7 +51,9 @@ fn uniform_b1_with_a_thousand_taps() {
 fn three_seconds_at_48k_with_large_blocks() {
     // 3 s at 48 kHz = 144,000 taps; short inputs keep the oracle cheap.
     let taps = 3 * 48_000;
-    for (b, (routing, channels)) in [(64usize, (Routing::Mono, 1usize)), (128, (Routing::Stereo, 2)), (1024, (Routing::TrueStereo, 4))] {
+    for (b, (routing, channels)) in
+        [(64usize, (Routing::Mono, 1usize)), (128, (Routing::Stereo, 2)), (1024, (Routing::TrueStereo, 4))]
+    {
         let ir = ImpulseResponse::new(
             (0..channels).map(|c| partita_core::synth::decaying_noise(taps, 60_000.0, c as u64 + 3)).collect(),
             48_000,
@@ -87,7 +89,14 @@ fn dirty_scratch_changes_nothing() {
     // Garbage (NaN, huge values) written into every scratch buffer before each call.
     let mut again = Engine::new(&plan, &ir, Routing::TrueStereo, 256).unwrap();
     let mut out = vec![vec![0.0f32; 3600]; 2];
-    let padded: Vec<Vec<f32>> = input.iter().map(|x| { let mut v = x.clone(); v.resize(3600, 0.0); v }).collect();
+    let padded: Vec<Vec<f32>> = input
+        .iter()
+        .map(|x| {
+            let mut v = x.clone();
+            v.resize(3600, 0.0);
+            v
+        })
+        .collect();
     let mut at = 0;
     let mut sizes = random_sizes(1, 256);
     while at < 3600 {

@@ -31,7 +31,12 @@ pub fn random_input(channels: usize, frames: usize, seed: u64) -> Vec<Vec<f32>> 
 
 /// Streams `input` (zero-padded to `total` frames) through `engine` in host calls whose sizes come from
 /// `next_size`, and returns `total` output frames per output.
-pub fn stream(engine: &mut Engine, input: &[Vec<f32>], total: usize, mut next_size: impl FnMut() -> usize) -> Vec<Vec<f32>> {
+pub fn stream(
+    engine: &mut Engine,
+    input: &[Vec<f32>],
+    total: usize,
+    mut next_size: impl FnMut() -> usize,
+) -> Vec<Vec<f32>> {
     let padded: Vec<Vec<f32>> = input
         .iter()
         .map(|x| {
@@ -59,7 +64,13 @@ pub fn random_sizes(seed: u64, max: usize) -> impl FnMut() -> usize {
 }
 
 /// The oracle's output for `input` through `ir` with `routing`, delayed by `latency` frames, `total` long.
-pub fn oracle(input: &[Vec<f32>], ir: &ImpulseResponse, routing: Routing, latency: usize, total: usize) -> Vec<Vec<f64>> {
+pub fn oracle(
+    input: &[Vec<f32>],
+    ir: &ImpulseResponse,
+    routing: Routing,
+    latency: usize,
+    total: usize,
+) -> Vec<Vec<f64>> {
     let map = routing.resolve(ir.channels()).unwrap();
     let pairs: Vec<(usize, usize, usize)> = map.paths.iter().map(|p| (p.input, p.output, p.ir_channel)).collect();
     naive::convolve_routed(input, ir.as_planar(), &pairs, map.outputs)
@@ -75,7 +86,13 @@ pub fn oracle(input: &[Vec<f32>], ir: &ImpulseResponse, routing: Routing, latenc
 
 /// Builds an engine, streams `input` with random call sizes, and checks every output against the oracle
 /// with the DESIGN.md bound. Returns the worst (max over peak, relative RMS) seen.
-pub fn check_against_oracle(plan: &Plan, ir: &ImpulseResponse, routing: Routing, input_frames: usize, seed: u64) -> (f64, f64) {
+pub fn check_against_oracle(
+    plan: &Plan,
+    ir: &ImpulseResponse,
+    routing: Routing,
+    input_frames: usize,
+    seed: u64,
+) -> (f64, f64) {
     let max_host = 1 + (seed as usize * 37) % 700;
     let mut engine = Engine::new(plan, ir, routing, max_host).unwrap();
     let input = random_input(routing.inputs(), input_frames, seed ^ 0xABCD);

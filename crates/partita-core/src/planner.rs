@@ -1,0 +1,337 @@
+//! The partition planner: uniform, optimal (dynamic programme over offset and level size) and custom
+//! layouts, each checked against the offset rule of its schedule.
+
+use crate::cost::{CostModel, Shape};
+use crate::error::PlanError;
+use crate::plan::{Level, Plan, Schedule};
+
+/// Which layout the planner produces.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum PlanMode {
+    /// One level of the engine block size (UPOLS).
+    Uniform,
+    /// The cheapest layout under the cost model (NUPOLS, Gardner 1995; Garcia 2002; Wefers 2015).
+    #[default]
+    Optimal,
+}
+
+/// Plans partitions for an IR length.
+///
+/// ```
+/// use partita_core::{Planner, PlanMode};
+/// let plan = Planner::new().block_frames(64).plan(480_000).unwrap();
+/// assert!(plan.levels.len() > 1);
+/// let uniform = Planner::new().block_frames(64).mode(PlanMode::Uniform).plan(480_000).unwrap();
+/// assert!(plan.flops_per_sample() < uniform.flops_per_sample() / 20.0);
+/// ```
+#[derive(Debug, Clone, PartialEq)]
+pub struct Planner {
+    block_frames: usize,
+    zero_latency: bool,
+    schedule: Schedule,
+    mode: PlanMode,
+    model: CostModel,
+    shape: Shape,
+    max_level_frames: usize,
+}
+
+impl Default for Planner {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl Planner {
+    /// Block 64, block latency, synchronous levels, optimal layout, flop model, mono cost, levels of at
+    /// most 65,536 frames.
+    pub fn new() -> Self {
+        Self {
+            block_frames: 64,
+            zero_latency: false,
+            schedule: Schedule::Sync,
+            mode: PlanMode::Optimal,
+            model: CostModel::default(),
+            shape: Shape::MONO,
+            max_level_frames: 1 << 16,
+        }
+    }
+
+    /// Engine block size B.
+    pub fn block_frames(mut self, block_frames: usize) -> Self {
+        self.block_frames = block_frames;
+        self
+    }
+
+    /// Zero latency (a direct-form head) or block latency.
+    pub fn zero_latency(mut self, zero_latency: bool) -> Self {
+        self.zero_latency = zero_latency;
+        self
+    }
+
+    /// The schedule of every level larger than the engine block (level-0 blocks are always `sync`).
+    pub fn schedule(mut self, schedule: Schedule) -> Self {
+        self.schedule = schedule;
+        self
+    }
+
+    /// Uniform or optimal.
+    pub fn mode(mut self, mode: PlanMode) -> Self {
+        self.mode = mode;
+        self
+    }
+
+    /// The cost model the optimal mode minimises.
+    pub fn cost_model(mut self, model: CostModel) -> Self {
+        self.model = model;
+        self
+    }
+
+    /// The engine shape costs are counted for (default mono).
+    pub fn shape(mut self, shape: Shape) -> Self {
+        self.shape = shape;
+        self
+    }
+
+    /// Largest level block the optimal mode may use.
+    pub fn max_level_frames(mut self, frames: usize) -> Self {
+        self.max_level_frames = frames;
+        self
+    }
+
+    /// The cost model in use.
+    pub fn model(&self) -> &CostModel {
+        &self.model
+    }
+
+    fn schedule_for(&self, level_block_frames: usize) -> Schedule {
+        if level_block_frames == self.block_frames {
+            Schedule::Sync
+        } else {
+            self.schedule
+        }
+    }
+
+    fn head_frames(&self, ir_frames: usize) -> usize {
+        if self.zero_latency {
+            self.block_frames.min(ir_frames)
+        } else {
+            0
+        }
+    }
+
+    /// Makes a plan for an IR of `ir_frames` taps.
+    ///
+    /// # Errors
+    /// [`PlanError`] for a zero block or IR length.
+    pub fn plan(&self, ir_frames: usize) -> Result<Plan, PlanError> {
+        let b = self.block_frames;
+        if b == 0 {
+            return Err(PlanError::BlockFramesZero);
+        }
+        if ir_frames == 0 {
+            return Err(PlanError::IrFramesZero);
+        }
+        let head = self.head_frames(ir_frames);
+        let levels = if head >= ir_frames {
+            Vec::new()
+        } else {
+            match self.mode {
+                PlanMode::Uniform => vec![Level {
+                    block_frames: b,
+                    partitions: (ir_frames - head).div_ceil(b),
+                    offset_frames: head,
+                    schedule: Schedule::Sync,
+                }],
+                PlanMode::Optimal => self.optimal_levels(head, ir_frames),
+            }
+        };
+        let plan = Plan { block_frames: b, zero_latency: self.zero_latency, head_frames: head, levels, ir_frames };
+        plan.validate()?;
+        Ok(plan)
+    }
+
+    /// A plan from the caller's levels, `(block_frames, partitions)` in IR order; offsets follow from the
+    /// head and the sizes. Levels of the engine block are `sync`, others get the planner's schedule.
+    ///
+    /// # Errors
+    /// The first rule the layout breaks ([`PlanError`]), e.g. a level that starts too early for its
+    /// schedule's offset rule, a block that is not a multiple of B, or too few taps.
+    pub fn custom(&self, levels: &[(usize, usize)], ir_frames: usize) -> Result<Plan, PlanError> {
+        let head = self.head_frames(ir_frames);
+        let mut offset = head;
+        let levels = levels
+            .iter()
+            .map(|&(n, p)| {
+                let l = Level { block_frames: n, partitions: p, offset_frames: offset, schedule: self.schedule_for(n) };
+                offset += n * p;
+                l
+            })
+            .collect();
+        let plan = Plan {
+            block_frames: self.block_frames,
+            zero_latency: self.zero_latency,
+            head_frames: head,
+            levels,
+            ir_frames,
+        };
+        plan.validate()?;
+        Ok(plan)
+    }
+
+    /// Candidate level sizes in units of B: 2^k and 3 * 2^k, up to `max_level_frames` and not far past
+    /// the IR length.
+    fn candidates(&self, ir_blocks: usize) -> Vec<usize> {
+        let b = self.block_frames;
+        let cap = (self.max_level_frames / b).max(1).min(ir_blocks.next_power_of_two().max(1));
+        let mut sizes: Vec<usize> = (0..)
+            .map(|k| 1usize << k)
+            .take_while(|&m| m <= cap)
+            .flat_map(|m| [m, 3 * m])
+            .filter(|&m| m <= cap)
+            .collect();
+        sizes.sort_unstable();
+        sizes.dedup();
+        sizes
+    }
+
+    /// The dynamic programme. State: (offset in blocks, size of the current level). From a state, either
+    /// add a partition of the current size, or open a level of another size when the offset rule of its
+    /// schedule allows. Offsets only grow, so one pass in offset order finds the cheapest layout.
+    fn optimal_levels(&self, head: usize, ir_frames: usize) -> Vec<Level> {
+        let b = self.block_frames;
+        let start = head / b; // head is 0 or B (or the whole IR, handled by the caller)
+        let target = start + (ir_frames - head).div_ceil(b);
+        let sizes = self.candidates(target - start);
+        let max_m = *sizes.last().unwrap_or(&1);
+        let len = target + max_m + 1;
+        let z = sizes.len();
+        let idx = |o: usize, s: usize| o * z + s;
+        let mut best = vec![f64::INFINITY; len * z];
+        let mut from: Vec<(usize, usize, bool)> = vec![(usize::MAX, usize::MAX, false); len * z];
+        let min_offset: Vec<usize> = sizes
+            .iter()
+            .map(|&m| {
+                let probe =
+                    Level { block_frames: m * b, partitions: 1, offset_frames: 0, schedule: self.schedule_for(m * b) };
+                probe.min_offset_frames(b, self.zero_latency)
+            })
+            .collect();
+        let level_cost: Vec<f64> = sizes.iter().map(|&m| self.model.level_cost(m * b, self.shape)).collect();
+        let part_cost: Vec<f64> = sizes.iter().map(|&m| self.model.partition_cost(m * b, self.shape)).collect();
+        // Openings from the start state (no level yet).
+        for (s, &m) in sizes.iter().enumerate() {
+            if start * b >= min_offset[s] && start + m < len {
+                let c = level_cost[s] + part_cost[s];
+                if c < best[idx(start + m, s)] {
+                    best[idx(start + m, s)] = c;
+                    from[idx(start + m, s)] = (start, usize::MAX, true);
+                }
+            }
+        }
+        for o in start..target {
+            for s in 0..z {
+                let here = best[idx(o, s)];
+                if !here.is_finite() {
+                    continue;
+                }
+                let m = sizes[s];
+                // Another partition of the current level.
+                if o + m < len && here + part_cost[s] < best[idx(o + m, s)] {
+                    best[idx(o + m, s)] = here + part_cost[s];
+                    from[idx(o + m, s)] = (o, s, false);
+                }
+                // A new level of another size.
+                for s2 in 0..z {
+                    let m2 = sizes[s2];
+                    if s2 == s || o * b < min_offset[s2] || o + m2 >= len {
+                        continue;
+                    }
+                    let c = here + level_cost[s2] + part_cost[s2];
+                    if c < best[idx(o + m2, s2)] {
+                        best[idx(o + m2, s2)] = c;
+                        from[idx(o + m2, s2)] = (o, s, true);
+                    }
+                }
+            }
+        }
+        // Cheapest terminal state.
+        let mut end = (usize::MAX, usize::MAX);
+        let mut end_cost = f64::INFINITY;
+        for o in target..len {
+            for s in 0..z {
+                if best[idx(o, s)] < end_cost {
+                    end_cost = best[idx(o, s)];
+                    end = (o, s);
+                }
+            }
+        }
+        // Walk back, collecting (size, partitions) runs.
+        let mut runs: Vec<(usize, usize)> = Vec::new();
+        let (mut o, mut s) = end;
+        let mut parts = 0;
+        loop {
+            let (po, ps, opened) = from[idx(o, s)];
+            parts += 1;
+            if opened {
+                runs.push((sizes[s] * b, parts));
+                parts = 0;
+            }
+            o = po;
+            s = ps;
+            if s == usize::MAX {
+                break;
+            }
+        }
+        runs.reverse();
+        let mut offset = head;
+        runs.into_iter()
+            .map(|(n, p)| {
+                let l = Level { block_frames: n, partitions: p, offset_frames: offset, schedule: self.schedule_for(n) };
+                offset += n * p;
+                l
+            })
+            .collect()
+    }
+
+    /// Chooses a block size and latency mode for a latency budget: every power-of-two block from 16 to
+    /// 8192 frames whose block latency fits the budget, and zero-latency plans at blocks 16 to 512, are
+    /// planned; the one with the lowest predicted cost (the most CPU headroom) wins. Returns the plan and a
+    /// one-line reason.
+    ///
+    /// # Errors
+    /// [`PlanError`] when the IR length is zero.
+    pub fn plan_for_latency(&self, budget_frames: usize, ir_frames: usize) -> Result<(Plan, String), PlanError> {
+        let mut best: Option<(f64, Plan)> = None;
+        let mut consider = |planner: Planner| -> Result<(), PlanError> {
+            let plan = planner.plan(ir_frames)?;
+            let cost = planner.model.plan_cost(&plan, planner.shape);
+            if best.as_ref().is_none_or(|(c, _)| cost < *c) {
+                best = Some((cost, plan));
+            }
+            Ok(())
+        };
+        for k in 4..=13 {
+            let b = 1usize << k;
+            if b <= budget_frames {
+                consider(self.clone().block_frames(b).zero_latency(false))?;
+            }
+        }
+        for k in 4..=9 {
+            consider(self.clone().block_frames(1 << k).zero_latency(true))?;
+        }
+        let (_, plan) = best.ok_or(PlanError::IrFramesZero)?;
+        let reason = if plan.zero_latency {
+            format!(
+                "zero latency at block {}: no block-latency plan within {budget_frames} frames costs less",
+                plan.block_frames
+            )
+        } else {
+            format!(
+                "block {} (latency {} frames) is the cheapest plan whose latency fits {budget_frames} frames",
+                plan.block_frames,
+                plan.latency_frames()
+            )
+        };
+        Ok((plan, reason))
+    }
+}

@@ -1,0 +1,219 @@
+//! The optimal planner against exhaustive search, the uniform plan and the doubling plan.
+
+use partita_core::{CostModel, Level, MachineCosts, Plan, PlanMode, Planner, Schedule, Shape};
+
+/// Candidate sizes in blocks, as the planner documents them: 2^k and 3 * 2^k up to `cap`.
+fn sizes(cap: usize) -> Vec<usize> {
+    let mut v: Vec<usize> = (0..8).flat_map(|k| [1usize << k, 3 << k]).filter(|&m| m <= cap).collect();
+    v.sort_unstable();
+    v.dedup();
+    v
+}
+
+struct Search<'a> {
+    b: usize,
+    zero: bool,
+    schedule: Schedule,
+    model: &'a CostModel,
+    sizes: Vec<usize>,
+    target: usize,
+    best: f64,
+    layouts: u64,
+}
+
+impl Search<'_> {
+    /// Exhaustive branch and bound over every valid layout: any size after any other (not only growing),
+    /// any partition count, each level checked against its offset rule. Costs are positive, so pruning a
+    /// branch already dearer than the best complete layout loses nothing.
+    fn go(&mut self, offset: usize, prev: Option<usize>, cost: f64) {
+        if offset >= self.target {
+            self.layouts += 1;
+            self.best = self.best.min(cost);
+            return;
+        }
+        if cost >= self.best {
+            return;
+        }
+        for m in self.sizes.clone() {
+            if Some(m) == prev {
+                continue; // the same size again is more partitions of the previous level
+            }
+            let n = m * self.b;
+            let schedule = if m == 1 { Schedule::Sync } else { self.schedule };
+            let probe = Level { block_frames: n, partitions: 1, offset_frames: offset * self.b, schedule };
+            if offset * self.b < probe.min_offset_frames(self.b, self.zero) {
+                continue;
+            }
+            let open = self.model.level_cost(n, Shape::MONO);
+            let part = self.model.partition_cost(n, Shape::MONO);
+            let mut p = 1;
+            loop {
+                let end = offset + m * p;
+                self.go(end, Some(m), cost + open + part * p as f64);
+                if end >= self.target {
+                    break;
+                }
+                p += 1;
+            }
+        }
+    }
+}
+
+fn measured_model() -> CostModel {
+    // A made-up machine whose big FFTs are relatively dear (cache misses): tests the DP under a model
+    // other than the flop count. Invented numbers, for this test only.
+    CostModel::Measured(MachineCosts {
+        fft_pair_seconds: (0..10).map(|k| (4usize << k, 1e-8 * (4u64 << k) as f64 * (1.0 + 0.3 * k as f64))).collect(),
+        mac_seconds_per_bin: 2e-10,
+        mac_streamed_seconds_per_bin: 1e-9,
+        cache_bytes: 1 << 16,
+        head_seconds_per_tap: 1e-10,
+        kernel: "test".into(),
+    })
+}
+
+#[test]
+fn optimal_equals_exhaustive_search_on_small_problems() {
+    let b = 4;
+    let mut compared = 0;
+    for model in [CostModel::default(), measured_model()] {
+        for (zero, schedule) in
+            [(false, Schedule::Sync), (true, Schedule::Sync), (false, Schedule::Workers), (true, Schedule::Sliced)]
+        {
+            for blocks in [1usize, 2, 3, 5, 8, 13, 21, 32] {
+                let ir_frames = blocks * b - 1;
+                let cap = 16;
+                let planner = Planner::new()
+                    .block_frames(b)
+                    .zero_latency(zero)
+                    .schedule(schedule)
+                    .cost_model(model.clone())
+                    .max_level_frames(cap * b);
+                let plan = planner.plan(ir_frames).unwrap();
+                plan.validate().unwrap();
+                let dp = model.plan_cost(&plan, Shape::MONO);
+                let head_blocks = plan.head_frames / b;
+                let head_cost = model.plan_cost(&Plan { levels: vec![], ..plan.clone() }, Shape::MONO);
+                let mut search = Search {
+                    b,
+                    zero,
+                    schedule,
+                    model: &model,
+                    sizes: sizes(cap.min(ir_frames.div_ceil(b).next_power_of_two())),
+                    target: ir_frames.div_ceil(b),
+                    best: f64::INFINITY,
+                    layouts: 0,
+                };
+                if plan.head_frames >= ir_frames {
+                    assert!(plan.levels.is_empty());
+                    continue;
+                }
+                search.go(head_blocks, None, head_cost);
+                assert!(search.layouts > 0);
+                assert!(
+                    (dp - search.best).abs() <= 1e-9 * search.best.abs(),
+                    "zero={zero} {schedule} blocks={blocks}: DP {dp} vs exhaustive {} ({:?})",
+                    search.best,
+                    plan.levels
+                );
+                compared += 1;
+            }
+        }
+    }
+    assert!(compared >= 50);
+}
+
+/// Gardner's doubling layout: each size twice (B, B, 2B, 2B, 4B, 4B, ...), synchronous, block latency.
+fn doubling_plan(b: usize, ir_frames: usize) -> Plan {
+    let mut levels = Vec::new();
+    let mut offset = 0;
+    let mut n = b;
+    while offset < ir_frames {
+        let p = 2.min((ir_frames - offset).div_ceil(n));
+        levels.push(Level { block_frames: n, partitions: p, offset_frames: offset, schedule: Schedule::Sync });
+        offset += n * p;
+        n *= 2;
+    }
+    Plan { block_frames: b, zero_latency: false, head_frames: 0, levels, ir_frames }
+}
+
+#[test]
+fn optimal_never_costs_more_than_uniform_or_doubling() {
+    for model in [CostModel::default(), measured_model()] {
+        for b in [16usize, 32, 64, 128, 256] {
+            for ir_frames in [1000usize, 24_000, 100_003, 480_000] {
+                let planner = Planner::new().block_frames(b).cost_model(model.clone());
+                let plan = planner.plan(ir_frames).unwrap();
+                plan.validate().unwrap();
+                let uniform = planner.clone().mode(PlanMode::Uniform).plan(ir_frames).unwrap();
+                let doubling = doubling_plan(b, ir_frames);
+                doubling.validate().unwrap();
+                let c = |p: &Plan| model.plan_cost(p, Shape::MONO);
+                assert!(c(&plan) <= c(&uniform) * (1.0 + 1e-12), "B={b} L={ir_frames}");
+                assert!(c(&plan) <= c(&doubling) * (1.0 + 1e-12), "B={b} L={ir_frames}");
+            }
+        }
+    }
+}
+
+#[test]
+fn every_emitted_plan_is_valid() {
+    for b in [1usize, 7, 16, 48, 64, 1000] {
+        for ir_frames in [1usize, 2, b, b + 1, 5 * b + 3, 77_777] {
+            for zero in [false, true] {
+                for schedule in [Schedule::Sync, Schedule::Workers, Schedule::Sliced] {
+                    for mode in [PlanMode::Uniform, PlanMode::Optimal] {
+                        let plan = Planner::new()
+                            .block_frames(b)
+                            .zero_latency(zero)
+                            .schedule(schedule)
+                            .mode(mode)
+                            .plan(ir_frames)
+                            .unwrap();
+                        plan.validate().unwrap();
+                        assert!(plan.covered_frames() >= ir_frames);
+                        assert_eq!(plan.latency_frames(), if zero { 0 } else { b });
+                    }
+                }
+            }
+        }
+    }
+}
+
+#[test]
+fn s1_plan_is_within_1_5x_of_the_published_flop_optimum() {
+    // DESIGN.md: the flop-model optimum for 480k taps at B = 64 is about 914 flops/sample
+    // (64x15 + 512x14 + 4096x14 + 32768x13), against about 61,000 for uniform partitions.
+    let plan = Planner::new().block_frames(64).plan(480_000).unwrap();
+    let f = plan.flops_per_sample();
+    assert!(f <= 1.5 * 914.0, "{f}");
+    let uniform = Planner::new().block_frames(64).mode(PlanMode::Uniform).plan(480_000).unwrap();
+    let fu = uniform.flops_per_sample();
+    assert!((fu - (10.0 * 128f64.log2() + 8.0 * 7500.0 * 65.0 / 64.0)).abs() < 1.0, "{fu}");
+    // T11: cost at 480k taps within 2.5x of the cost at 24k taps (uniform grows ~20x).
+    let small = Planner::new().block_frames(64).plan(24_000).unwrap().flops_per_sample();
+    assert!(f <= 2.5 * small, "{f} vs {small}");
+}
+
+#[test]
+fn latency_budget_picks_the_cheapest_plan_that_fits() {
+    let planner = Planner::new();
+    let (plan, why) = planner.plan_for_latency(300, 480_000).unwrap();
+    assert!(plan.latency_frames() <= 300, "{why}");
+    assert!(!why.is_empty());
+    for b in [16usize, 32, 64, 128, 256] {
+        let other = planner.clone().block_frames(b).plan(480_000).unwrap();
+        assert!(plan.flops_per_sample() <= other.flops_per_sample() + 1e-9, "B={b}: {why}");
+    }
+    let (tiny, why) = planner.plan_for_latency(4, 48_000).unwrap();
+    assert!(tiny.zero_latency, "{why}");
+}
+
+#[test]
+fn plans_round_trip_through_json() {
+    let plan = Planner::new().block_frames(32).zero_latency(true).schedule(Schedule::Workers).plan(50_000).unwrap();
+    let json = serde_json::to_string(&plan).unwrap();
+    assert!(json.contains("\"schedule\":\"workers\""), "{json}");
+    let back: Plan = serde_json::from_str(&json).unwrap();
+    assert_eq!(back, plan);
+}

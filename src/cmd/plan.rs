@@ -1,0 +1,242 @@
+//! `partita plan`: choose a partition for an IR length and a block size or latency budget, show its
+//! levels, latency and predicted cost, and optionally measure it on this machine.
+
+use clap::Args;
+use partita_core::{CostModel, Engine, ImpulseResponse, Plan, PlanMode, Planner, Routing, Schedule, Shape};
+use serde_json::json;
+
+use super::{parse_routing, CmdResult};
+use partita::calibration::machine_costs;
+use partita::measure;
+
+/// Arguments of `partita plan`.
+#[derive(Debug, Args)]
+pub struct PlanArgs {
+    /// IR length in seconds (a synthetic decaying IR of this length is used for --measure).
+    #[arg(long, value_name = "S", conflicts_with = "ir")]
+    ir_seconds: Option<f64>,
+    /// IR file (WAV): its length, channel count and rate.
+    #[arg(long, value_name = "FILE")]
+    ir: Option<std::path::PathBuf>,
+    /// Sample rate in Hz [default: 48000, or the IR file's rate].
+    #[arg(long, value_name = "HZ")]
+    rate: Option<u32>,
+    /// Engine block size in frames (the latency without --zero-latency) [default: 64].
+    #[arg(long, value_name = "N", conflicts_with = "latency_ms")]
+    block: Option<usize>,
+    /// Latency budget in milliseconds: picks the block size and mode with the most CPU headroom.
+    #[arg(long, value_name = "X")]
+    latency_ms: Option<f64>,
+    /// Zero latency: a direct-form head makes the output sample-accurate.
+    #[arg(long)]
+    zero_latency: bool,
+    /// IR channels: 1 mono, 2 stereo, 4 true stereo (LL LR RL RR) [default: 1, or the IR file's].
+    #[arg(long, value_name = "N", conflicts_with = "routing")]
+    channels: Option<usize>,
+    /// Routing: mono, mono-to-stereo, stereo, true-stereo or matrix:MxN.
+    #[arg(long, value_name = "R", value_parser = parse_routing)]
+    routing: Option<Routing>,
+    /// Schedule of levels larger than the block: sync, workers or sliced.
+    #[arg(long, default_value = "sync")]
+    schedule: Schedule,
+    /// Uniform partitions instead of the optimal plan.
+    #[arg(long)]
+    uniform: bool,
+    /// Your own levels, e.g. 64x15,512x14,4096x14 (block x partitions, in IR order).
+    #[arg(long, value_name = "LIST", conflicts_with = "uniform")]
+    levels: Option<String>,
+    /// Cost model: `measured` (calibrated on this machine, cached) or `flops`.
+    #[arg(long, default_value = "measured")]
+    model: String,
+    /// Measure the machine again instead of using the cached calibration.
+    #[arg(long)]
+    recalibrate: bool,
+    /// Run the engine on this machine, paced on the real deadline grid, and report the measured load.
+    #[arg(long)]
+    measure: bool,
+    /// Audio seconds to run with --measure.
+    #[arg(long, default_value_t = 3.0, value_name = "S")]
+    measure_seconds: f64,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    json: bool,
+}
+
+fn parse_levels(s: &str) -> Result<Vec<(usize, usize)>, String> {
+    s.split(',')
+        .map(|part| {
+            let (n, p) = part.trim().split_once('x').ok_or_else(|| format!("level `{part}` needs the form NxP"))?;
+            let n = n.parse().map_err(|_| format!("bad block size in level `{part}`"))?;
+            let p = p.parse().map_err(|_| format!("bad partition count in level `{part}`"))?;
+            Ok((n, p))
+        })
+        .collect()
+}
+
+/// The routing for an IR channel count when none is given.
+fn routing_for_channels(channels: usize) -> Result<Routing, String> {
+    match channels {
+        1 => Ok(Routing::Mono),
+        2 => Ok(Routing::Stereo),
+        4 => Ok(Routing::TrueStereo),
+        n => Err(format!("{n} IR channels need an explicit --routing (e.g. matrix:MxN)")),
+    }
+}
+
+/// Runs `partita plan`.
+pub fn run(args: PlanArgs) -> CmdResult {
+    let (ir_frames, ir_channels, rate) = match (&args.ir, args.ir_seconds) {
+        (Some(path), _) => {
+            return Err(format!("{}: reading IR files arrives with WAV support", path.display()).into());
+        }
+        (None, Some(s)) => {
+            let rate = args.rate.unwrap_or(48_000);
+            if !(s.is_finite() && s > 0.0) {
+                return Err(format!("--ir-seconds must be a positive number of seconds, got {s}").into());
+            }
+            let frames = (s * f64::from(rate)).round().max(1.0) as usize;
+            (frames, args.channels.unwrap_or(1), rate)
+        }
+        (None, None) => return Err("give the IR length with --ir-seconds S or an IR file with --ir FILE".into()),
+    };
+    if rate == 0 {
+        return Err("--rate must be above 0 Hz".into());
+    }
+    let routing = match args.routing {
+        Some(r) => r,
+        None => routing_for_channels(args.channels.unwrap_or(ir_channels))?,
+    };
+    let map = routing.resolve(super::ir_channels_for(routing))?;
+    let shape = Shape::of(&map);
+
+    let model = match args.model.as_str() {
+        "flops" => CostModel::default(),
+        "measured" => CostModel::Measured(machine_costs(partita_core::Kernel::detect(), args.recalibrate)),
+        other => return Err(format!("unknown cost model `{other}`; use measured or flops").into()),
+    };
+    let planner = Planner::new()
+        .block_frames(args.block.unwrap_or(64))
+        .zero_latency(args.zero_latency)
+        .schedule(args.schedule)
+        .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
+        .cost_model(model.clone())
+        .shape(shape);
+
+    let (plan, reason) = if let Some(ms) = args.latency_ms {
+        if !(ms.is_finite() && ms >= 0.0) {
+            return Err(format!("--latency-ms must be a non-negative number, got {ms}").into());
+        }
+        let budget = (ms * f64::from(rate) / 1000.0).floor() as usize;
+        let (plan, why) = planner.plan_for_latency(budget, ir_frames)?;
+        (plan, Some(why))
+    } else if let Some(levels) = &args.levels {
+        (planner.custom(&parse_levels(levels)?, ir_frames)?, None)
+    } else {
+        (planner.plan(ir_frames)?, None)
+    };
+
+    let uniform = Plan::uniform(plan.block_frames, ir_frames)?;
+    let direct_flops = 2.0 * ir_frames as f64;
+    let rate_f = f64::from(rate);
+    let predicted = model.load_pct(&plan, shape, rate_f);
+
+    // Build the engine: it gives the exact memory figure, and --measure runs it.
+    let taps = partita_core::synth::decaying_noise(ir_frames, (ir_frames as f64 / 2.0).max(1.0), 1);
+    let ir = ImpulseResponse::new(vec![taps; super::ir_channels_for(routing)], rate)?;
+    let mut engine = Engine::new(&plan, &ir, routing, plan.block_frames)?;
+    let memory = engine.memory_bytes();
+    let measured = args.measure.then(|| measure::run(&mut engine, rate, args.measure_seconds, plan.block_frames, true));
+
+    let ms = |frames: usize| frames as f64 * 1000.0 / rate_f;
+    if args.json {
+        let mut out = json!({
+            "ir_frames": ir_frames,
+            "sample_rate_hz": rate,
+            "routing": format!("{routing:?}"),
+            "paths": shape.paths,
+            "block_frames": plan.block_frames,
+            "zero_latency": plan.zero_latency,
+            "latency_frames": plan.latency_frames(),
+            "latency_ms": ms(plan.latency_frames()),
+            "head_frames": plan.head_frames,
+            "levels": plan.levels.iter().map(|l| json!({
+                "block_frames": l.block_frames,
+                "partitions": l.partitions,
+                "offset_frames": l.offset_frames,
+                "schedule": l.schedule.as_str(),
+            })).collect::<Vec<_>>(),
+            "flops_per_sample": plan.flops_per_sample(),
+            "uniform_flops_per_sample": uniform.flops_per_sample(),
+            "direct_flops_per_sample": direct_flops,
+            "cost_model": args.model,
+            "predicted_load_pct": predicted,
+            "memory_bytes": memory,
+        });
+        if let Some(why) = &reason {
+            out["reason"] = json!(why);
+        }
+        if let Some(m) = measured {
+            out["measured_load_pct"] = json!(m.mean_load_pct);
+            out["worst_callback_pct"] = json!(m.max_pct);
+            out["worst_callback_wall_pct"] = json!(m.max_wall_pct);
+            out["p999_callback_pct"] = json!(m.p999_pct);
+            out["measured_seconds"] = json!(m.audio_seconds);
+        }
+        println!("{}", serde_json::to_string_pretty(&out)?);
+        return Ok(());
+    }
+
+    println!(
+        "Plan for a {:.3} s impulse response ({ir_frames} frames) at {rate} Hz, {routing:?} routing ({} path{})",
+        ir_frames as f64 / rate_f,
+        shape.paths,
+        if shape.paths == 1 { "" } else { "s" }
+    );
+    if let Some(why) = &reason {
+        println!("chosen: {why}");
+    }
+    println!();
+    println!("  {:<6} {:>8} {:>11} {:>10} {:>10}  schedule", "level", "block", "partitions", "offset", "taps");
+    if plan.head_frames > 0 {
+        println!("  {:<6} {:>8} {:>11} {:>10} {:>10}  direct form", "head", "-", "-", 0, plan.head_frames);
+    }
+    for (i, l) in plan.levels.iter().enumerate() {
+        println!(
+            "  {:<6} {:>8} {:>11} {:>10} {:>10}  {}",
+            i,
+            l.block_frames,
+            l.partitions,
+            l.offset_frames,
+            l.block_frames * l.partitions,
+            l.schedule
+        );
+    }
+    println!();
+    println!(
+        "latency      {} frames ({:.3} ms){}",
+        plan.latency_frames(),
+        ms(plan.latency_frames()),
+        if plan.zero_latency { ", sample-accurate" } else { "" }
+    );
+    println!(
+        "cost         {:.0} flops/sample per path (uniform partitions: {:.0}; direct form: {:.0})",
+        plan.flops_per_sample(),
+        uniform.flops_per_sample(),
+        direct_flops
+    );
+    println!("predicted    {predicted:.3}% of one core ({} model, all paths)", args.model);
+    println!("memory       {:.1} MB", memory as f64 / 1e6);
+    if let Some(m) = measured {
+        println!(
+            "measured     {:.3}% of one core over {:.1} s of audio, paced; worst callback {:.1}% of the {:.3} ms \
+             deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%",
+            m.mean_load_pct,
+            m.audio_seconds,
+            m.max_pct,
+            ms(plan.block_frames),
+            m.max_wall_pct,
+            m.p999_pct
+        );
+    }
+    Ok(())
+}

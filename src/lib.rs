@@ -1,0 +1,9 @@
+#![doc = include_str!("../README.md")]
+#![warn(missing_docs)]
+#![deny(unsafe_op_in_unsafe_fn)]
+
+pub use partita_core as core;
+pub use partita_io as io;
+
+pub mod calibration;
+pub mod measure;

@@ -1,0 +1,115 @@
+//! Measuring an engine on this machine: CPU clocks and paced callback runs.
+//!
+//! Mean load is the CPU time of the whole process (every thread the engine uses) over the audio time
+//! processed, in % of one core. Callback time is one `process()` call, on the calling thread's CPU clock
+//! (judged against the deadline, DESIGN.md section 4) with the wall-clock time beside it.
+
+use std::time::{Duration, Instant};
+
+use partita_core::synth::Noise;
+use partita_core::Engine;
+use serde::Serialize;
+
+fn clock_seconds(clock: libc::clockid_t) -> f64 {
+    let mut ts = libc::timespec { tv_sec: 0, tv_nsec: 0 };
+    // SAFETY: `ts` is a valid, writable timespec; the clock ids used are supported on Linux.
+    let rc = unsafe { libc::clock_gettime(clock, &mut ts) };
+    if rc != 0 {
+        return 0.0;
+    }
+    ts.tv_sec as f64 + ts.tv_nsec as f64 * 1e-9
+}
+
+/// CPU seconds the calling thread has used.
+pub fn thread_cpu_seconds() -> f64 {
+    clock_seconds(libc::CLOCK_THREAD_CPUTIME_ID)
+}
+
+/// CPU seconds every thread of this process has used.
+pub fn process_cpu_seconds() -> f64 {
+    clock_seconds(libc::CLOCK_PROCESS_CPUTIME_ID)
+}
+
+/// What a measured run found.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct RunStats {
+    /// Audio seconds processed.
+    pub audio_seconds: f64,
+    /// Callbacks issued.
+    pub callbacks: usize,
+    /// Process CPU time over audio time, % of one core.
+    pub mean_load_pct: f64,
+    /// Callback thread-CPU time percentiles and maximum, % of the callback deadline.
+    pub p50_pct: f64,
+    /// 99th percentile.
+    pub p99_pct: f64,
+    /// 99.9th percentile.
+    pub p999_pct: f64,
+    /// Worst callback, thread-CPU time.
+    pub max_pct: f64,
+    /// Worst callback, wall-clock time.
+    pub max_wall_pct: f64,
+    /// 99.9th percentile of wall-clock time.
+    pub p999_wall_pct: f64,
+}
+
+/// Runs `engine` over `seconds` of seeded noise in host calls of `host_frames`. When `paced`, each call
+/// is issued on the real deadline grid (sleeping between calls, as a sound card would wake the audio
+/// thread, so caches go cold as they do live); otherwise calls run back to back. Allocates its buffers
+/// before the run.
+///
+/// # Panics
+/// When `host_frames` exceeds the engine's `max_host_frames`.
+pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: usize, paced: bool) -> RunStats {
+    assert!(host_frames >= 1 && host_frames <= engine.max_host_frames());
+    let mut noise = Noise::new(0xC0FFEE);
+    let inputs: Vec<Vec<f32>> = (0..engine.inputs()).map(|_| noise.vec(host_frames * 64)).collect();
+    let mut outputs = vec![vec![0.0f32; host_frames]; engine.outputs()];
+    let calls = ((seconds * f64::from(sample_rate_hz)) / host_frames as f64).ceil().max(1.0) as usize;
+    let period = Duration::from_secs_f64(host_frames as f64 / f64::from(sample_rate_hz));
+    let mut cpu = Vec::with_capacity(calls);
+    let mut wall = Vec::with_capacity(calls);
+    let mut ins: Vec<&[f32]> = Vec::with_capacity(inputs.len());
+    let process_start = process_cpu_seconds();
+    let start = Instant::now();
+    for k in 0..calls {
+        if paced {
+            let due = start + period * k as u32;
+            let now = Instant::now();
+            if due > now {
+                std::thread::sleep(due - now);
+            }
+        }
+        let at = (k % 63) * host_frames;
+        ins.clear();
+        ins.extend(inputs.iter().map(|x| &x[at..at + host_frames]));
+        let mut outs: Vec<&mut [f32]> = outputs.iter_mut().map(|y| &mut y[..]).collect();
+        let t0 = Instant::now();
+        let c0 = thread_cpu_seconds();
+        let result = engine.process(&ins, &mut outs);
+        let c1 = thread_cpu_seconds();
+        let w = t0.elapsed().as_secs_f64();
+        debug_assert!(result.is_ok());
+        cpu.push(c1 - c0);
+        wall.push(w);
+    }
+    let _ = process_cpu_seconds() - process_start;
+    let callback_cpu: f64 = cpu.iter().sum();
+    let audio_seconds = (calls * host_frames) as f64 / f64::from(sample_rate_hz);
+    let deadline = period.as_secs_f64();
+    let pct = |v: f64| 100.0 * v / deadline;
+    cpu.sort_by(f64::total_cmp);
+    wall.sort_by(f64::total_cmp);
+    let q = |v: &[f64], f: f64| v[((v.len() as f64 - 1.0) * f).round() as usize];
+    RunStats {
+        audio_seconds,
+        callbacks: calls,
+        mean_load_pct: 100.0 * callback_cpu / audio_seconds,
+        p50_pct: pct(q(&cpu, 0.5)),
+        p99_pct: pct(q(&cpu, 0.99)),
+        p999_pct: pct(q(&cpu, 0.999)),
+        max_pct: pct(*cpu.last().unwrap_or(&0.0)),
+        max_wall_pct: pct(*wall.last().unwrap_or(&0.0)),
+        p999_wall_pct: pct(q(&wall, 0.999)),
+    }
+}
