@@ -1,6 +1,6 @@
 //! Direct-form convolution with f64 accumulation: the oracle every engine test compares against.
 //!
-//! y[n] = sum_k h[k] x[n - k] (Oppenheim & Schafer, *Discrete-Time Signal Processing*, the convolution sum).
+//! `y[n] = sum_k h[k] x[n - k]` (Oppenheim & Schafer, *Discrete-Time Signal Processing*, the convolution sum).
 //! It costs `x.len() * h.len()` multiply-adds, so it is for tests and short filters only.
 
 /// Full linear convolution: `x.len() + h.len() - 1` samples (empty if either input is empty).
