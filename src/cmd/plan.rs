@@ -13,7 +13,7 @@ use partita::measure;
 #[derive(Debug, Args)]
 pub struct PlanArgs {
     /// IR length in seconds (a synthetic decaying IR of this length is used for --measure).
-    #[arg(long, value_name = "S", conflicts_with = "ir")]
+    #[arg(long, value_name = "S", conflicts_with = "ir", allow_negative_numbers = true)]
     ir_seconds: Option<f64>,
     /// IR file (WAV): its length, channel count and rate.
     #[arg(long, value_name = "FILE")]
@@ -25,7 +25,7 @@ pub struct PlanArgs {
     #[arg(long, value_name = "N", conflicts_with = "latency_ms")]
     block: Option<usize>,
     /// Latency budget in milliseconds: picks the block size and mode with the most CPU headroom.
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     latency_ms: Option<f64>,
     /// Zero latency: a direct-form head makes the output sample-accurate.
     #[arg(long)]

@@ -1,0 +1,85 @@
+//! `partita plan` end to end: the JSON keys, the S1 figures and the latency-budget choice.
+
+use std::process::Command;
+
+fn plan_json(args: &[&str]) -> serde_json::Value {
+    let out = Command::new(env!("CARGO_BIN_EXE_partita"))
+        .arg("plan")
+        .args(args)
+        .args(["--json", "--model", "flops"])
+        .output()
+        .expect("run partita");
+    assert!(out.status.success(), "partita plan {args:?} failed: {}", String::from_utf8_lossy(&out.stderr));
+    serde_json::from_slice(&out.stdout).expect("plan --json prints JSON")
+}
+
+#[test]
+fn json_has_the_documented_keys() {
+    let v = plan_json(&["--ir-seconds", "10", "--channels", "2", "--block", "64"]);
+    for key in ["block_frames", "latency_frames", "levels", "flops_per_sample", "predicted_load_pct"] {
+        assert!(v.get(key).is_some(), "missing {key}: {v}");
+    }
+    for level in v["levels"].as_array().unwrap() {
+        for key in ["block_frames", "partitions", "offset_frames", "schedule"] {
+            assert!(level.get(key).is_some(), "level missing {key}: {level}");
+        }
+    }
+    assert_eq!(v["block_frames"], 64);
+    assert_eq!(v["latency_frames"], 64);
+    // S1: within 1.5x of the flop-model optimum of about 914 flops/sample (DESIGN.md section 3).
+    let flops = v["flops_per_sample"].as_f64().unwrap();
+    assert!(flops <= 1.5 * 914.0, "{flops}");
+    // Direct form costs 2 L flops per sample (textbook: L multiply-adds per output sample).
+    assert_eq!(v["direct_flops_per_sample"].as_f64().unwrap(), 2.0 * 480_000.0);
+    assert!(v.get("measured_load_pct").is_none(), "not measured without --measure");
+}
+
+#[test]
+fn zero_latency_and_schedules_show_in_the_plan() {
+    let v = plan_json(&["--ir-seconds", "2", "--block", "128", "--zero-latency", "--schedule", "workers"]);
+    assert_eq!(v["latency_frames"], 0);
+    assert_eq!(v["head_frames"], 128);
+    let levels = v["levels"].as_array().unwrap();
+    assert_eq!(levels[0]["schedule"], "sync");
+    assert!(levels.iter().skip(1).all(|l| l["schedule"] == "workers"), "{levels:?}");
+}
+
+#[test]
+fn latency_budget_chooses_a_block_that_fits() {
+    let v = plan_json(&["--ir-seconds", "3", "--latency-ms", "5"]);
+    let latency = v["latency_frames"].as_u64().unwrap();
+    assert!(latency <= 240, "5 ms at 48 kHz is 240 frames, got {latency}");
+    assert!(v["reason"].as_str().unwrap().contains("fits"), "{v}");
+}
+
+#[test]
+fn measure_reports_load_and_worst_callback() {
+    let v = plan_json(&["--ir-seconds", "0.5", "--block", "256", "--measure", "--measure-seconds", "0.5"]);
+    let load = v["measured_load_pct"].as_f64().unwrap();
+    let worst = v["worst_callback_pct"].as_f64().unwrap();
+    assert!(load > 0.0 && worst > 0.0, "{v}");
+}
+
+#[test]
+fn custom_levels_and_bad_input_give_clear_errors() {
+    let v = plan_json(&["--ir-seconds", "0.1", "--block", "64", "--levels", "64x3,256x18"]);
+    assert_eq!(v["levels"][1]["offset_frames"], 192);
+    for (args, needle) in [
+        (vec!["--ir-seconds", "0.1", "--levels", "64x2,256x20"], "offset rule"),
+        (vec!["--ir-seconds", "-1"], "positive"),
+        (vec!["--block", "64"], "--ir-seconds"),
+        (vec!["--ir-seconds", "1", "--channels", "3"], "--routing"),
+        (vec!["--ir-seconds", "1", "--routing", "matrix:2y3"], "matrix:MxN"),
+    ] {
+        let out = Command::new(env!("CARGO_BIN_EXE_partita")).arg("plan").args(&args).output().unwrap();
+        assert!(!out.status.success(), "{args:?} should fail");
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(err.contains(needle), "{args:?}: {err}");
+        // Our own errors are one line; argument errors are clap's (a line, then a hint).
+        if err.starts_with("partita: error:") {
+            assert_eq!(err.lines().count(), 1, "one clear line, got: {err}");
+        } else {
+            assert!(err.lines().next().unwrap().contains(needle), "{err}");
+        }
+    }
+}
