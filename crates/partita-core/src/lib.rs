@@ -30,6 +30,7 @@ pub mod analysis;
 pub mod cost;
 pub mod denormal;
 mod engine;
+pub mod offline;
 mod error;
 mod fdl;
 mod head;

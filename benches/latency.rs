@@ -1,0 +1,2 @@
+//! Placeholder: the latency benchmark is being written.
+fn main() {}

@@ -1,0 +1,2 @@
+//! Placeholder: the offline benchmark is being written.
+fn main() {}

@@ -1,0 +1,1 @@
+//! Offline rendering of whole signals across threads (in progress).
