@@ -1,0 +1,106 @@
+//! Loading an impulse response from a WAV file, ready for the engine.
+
+use std::path::Path;
+
+use partita_core::{ImpulseResponse, IrError};
+
+use crate::audio::Audio;
+use crate::error::IoError;
+use crate::info::WavInfo;
+use crate::layout::Layout;
+use crate::prepare::{normalize, resample, resampled_frames, trim_tail, Normalize};
+use crate::read::{read_checked, MAX_DECODED_BYTES};
+
+/// The longest impulse response accepted, in frames per channel (after resampling): 2^24 = 16,777,216 taps,
+/// 5.8 minutes at 48 kHz. The engine keeps about 16 bytes per tap per (input, IR channel) pair, so this is
+/// about 256 MiB per pair. Checked from the WAV header before the samples are read.
+pub const MAX_IR_FRAMES: u64 = 1 << 24;
+
+/// What [`load_ir`] does to the file's taps. The default does nothing: no resampling, no trimming, no gain,
+/// the layout from the channel count.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct IrOptions {
+    /// Resample to this rate (the engine's) when the file's rate differs.
+    pub sample_rate_hz: Option<u32>,
+    /// Trim the tail below this level relative to the peak, in dB (e.g. -90); see [`trim_tail`].
+    pub trim_tail_db: Option<f64>,
+    /// Gain normalization; see [`Normalize`].
+    pub normalize: Normalize,
+    /// The layout; `None` derives it from the channel count ([`Layout::from_channels`]).
+    pub layout: Option<Layout>,
+}
+
+/// An impulse response loaded by [`load_ir`], with what was done to it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PreparedIr {
+    /// The validated taps, at the engine's rate.
+    pub ir: ImpulseResponse,
+    /// The layout that was checked against the channel count.
+    pub layout: Layout,
+    /// The file's header.
+    pub source: WavInfo,
+    /// Frames removed by tail trimming (at the file's rate).
+    pub trimmed_frames: usize,
+    /// The gain normalization applied (1 for none).
+    pub gain: f64,
+}
+
+/// Reads, checks and prepares an impulse response: read the WAV, check the layout against its channels,
+/// trim the tail, resample to the engine's rate (keeping the frequency response), normalize, validate.
+/// Allocates.
+///
+/// The length limit [`MAX_IR_FRAMES`] is checked from the header (scaled by the resampling ratio) before any
+/// sample is read.
+///
+/// # Errors
+/// Every [`read_wav`](crate::read_wav) error; [`IoError::EmptyIr`] for 0 frames; [`IoError::IrTooLong`];
+/// [`IoError::Prepare`] for a missing or unfitting layout, a bad threshold, a silent IR with normalization;
+/// [`IoError::Ir`] if the core refuses the taps. All name the file.
+pub fn load_ir(path: &Path, options: &IrOptions) -> Result<PreparedIr, IoError> {
+    let prepare_err = |source| IoError::Prepare { path: path.to_path_buf(), source };
+    let (source, mut audio) = read_checked(path, MAX_DECODED_BYTES, |info| {
+        let frames = match options.sample_rate_hz {
+            Some(to_hz) => resampled_frames(info.frames, info.sample_rate_hz, to_hz),
+            None => info.frames,
+        };
+        if frames > MAX_IR_FRAMES {
+            return Err(IoError::IrTooLong { path: path.to_path_buf(), frames, limit_frames: MAX_IR_FRAMES });
+        }
+        Ok(())
+    })?;
+    if audio.frames() == 0 {
+        return Err(IoError::EmptyIr { path: path.to_path_buf() });
+    }
+    let layout = match options.layout {
+        Some(layout) => layout,
+        None => Layout::from_channels(audio.channel_count()).map_err(prepare_err)?,
+    };
+    layout.check(audio.channel_count()).map_err(prepare_err)?;
+    let trimmed_frames = match options.trim_tail_db {
+        Some(db) => trim_tail(&mut audio, db).map_err(prepare_err)?,
+        None => 0,
+    };
+    if let Some(to_hz) = options.sample_rate_hz {
+        audio = resample(&audio, to_hz).map_err(prepare_err)?;
+    }
+    let gain = normalize(&mut audio, options.normalize).map_err(prepare_err)?;
+    let ir = to_impulse_response(audio, path)?;
+    Ok(PreparedIr { ir, layout, source, trimmed_frames, gain })
+}
+
+/// Turns prepared audio into the core's [`ImpulseResponse`], naming `path` in any error. Takes the samples
+/// without copying.
+///
+/// # Errors
+/// [`IoError::EmptyIr`] for no frames or no channels, [`IoError::IrTooLong`] beyond [`MAX_IR_FRAMES`], and
+/// [`IoError::Ir`] for the core's other reasons (unequal channel lengths, a NaN or infinite tap, 0 Hz).
+pub fn to_impulse_response(audio: Audio, path: &Path) -> Result<ImpulseResponse, IoError> {
+    let frames = audio.frames() as u64;
+    if frames > MAX_IR_FRAMES {
+        return Err(IoError::IrTooLong { path: path.to_path_buf(), frames, limit_frames: MAX_IR_FRAMES });
+    }
+    ImpulseResponse::new(audio.channels, audio.sample_rate_hz).map_err(|source| match source {
+        IrError::Empty | IrError::NoChannels => IoError::EmptyIr { path: path.to_path_buf() },
+        source => IoError::Ir { path: path.to_path_buf(), source },
+    })
+}
