@@ -83,3 +83,28 @@ fn custom_levels_and_bad_input_give_clear_errors() {
         }
     }
 }
+
+#[test]
+fn workers_and_sliced_s1_report_measured_load_and_worst_callback() {
+    // S1 (10 s stereo, block 64) measured briefly: a functional check that the keys are there and
+    // sane, not a performance figure (those come from the benches).
+    for schedule in ["workers", "sliced"] {
+        let v = plan_json(&[
+            "--ir-seconds",
+            "10",
+            "--channels",
+            "2",
+            "--block",
+            "64",
+            "--schedule",
+            schedule,
+            "--measure",
+            "--measure-seconds",
+            "1",
+        ]);
+        let load = v["measured_load_pct"].as_f64().unwrap();
+        let worst = v["worst_callback_pct"].as_f64().unwrap();
+        assert!(load > 0.0 && load < 100.0 && worst > 0.0, "{schedule}: {v}");
+        assert!(v["levels"].as_array().unwrap().iter().skip(1).all(|l| l["schedule"] == schedule), "{v}");
+    }
+}

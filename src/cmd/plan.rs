@@ -48,6 +48,10 @@ pub struct PlanArgs {
     /// Cost model: `measured` (calibrated on this machine, cached) or `flops`.
     #[arg(long, default_value = "measured")]
     model: String,
+    /// With --measure: ask for real-time (SCHED_FIFO, rate-monotonic) priorities for worker threads;
+    /// reports what was granted. Off by default.
+    #[arg(long)]
+    realtime_workers: bool,
     /// Measure the machine again instead of using the cached calibration.
     #[arg(long)]
     recalibrate: bool,
@@ -87,7 +91,37 @@ fn routing_for_channels(channels: usize) -> Result<Routing, String> {
 pub fn run(args: PlanArgs) -> CmdResult {
     let (ir_frames, ir_channels, rate) = match (&args.ir, args.ir_seconds) {
         (Some(path), _) => {
-            return Err(format!("{}: reading IR files arrives with WAV support", path.display()).into());
+            // The header gives channels, rate and length; the taps themselves do not change the plan.
+            let info = partita_io::read_wav_info(path)?;
+            if info.frames == 0 {
+                return Err(format!(
+                    "{}: the impulse response has 0 frames; give a file with at least one frame",
+                    path.display()
+                )
+                .into());
+            }
+            let rate = args.rate.unwrap_or(info.sample_rate_hz);
+            if rate == 0 {
+                return Err("--rate must be above 0 Hz".into());
+            }
+            // Resampled to --rate, an IR keeps its duration: ceil(frames x rate / file rate) frames.
+            let frames = partita_io::resampled_frames(info.frames, info.sample_rate_hz, rate);
+            if frames > partita_io::MAX_IR_FRAMES {
+                return Err(format!(
+                    "{}: the impulse response would have {frames} frames, over the limit of {} frames",
+                    path.display(),
+                    partita_io::MAX_IR_FRAMES
+                )
+                .into());
+            }
+            let channels = usize::from(info.channels);
+            if let Some(routing) = args.routing {
+                routing.resolve(channels).map_err(|e| format!("{}: {e}", path.display()))?;
+            }
+            if args.channels.is_none() && args.routing.is_none() {
+                routing_for_channels(channels).map_err(|e| format!("{}: {e}", path.display()))?;
+            }
+            (frames as usize, channels, rate)
         }
         (None, Some(s)) => {
             let rate = args.rate.unwrap_or(48_000);
@@ -143,7 +177,11 @@ pub fn run(args: PlanArgs) -> CmdResult {
     // Build the engine: it gives the exact memory figure, and --measure runs it.
     let taps = partita_core::synth::decaying_noise(ir_frames, (ir_frames as f64 / 2.0).max(1.0), 1);
     let ir = ImpulseResponse::new(vec![taps; super::ir_channels_for(routing)], rate)?;
-    let mut engine = Engine::new(&plan, &ir, routing, plan.block_frames)?;
+    let options = partita_core::EngineOptions {
+        realtime_workers: args.realtime_workers,
+        ..partita_core::EngineOptions::new(plan.block_frames)
+    };
+    let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
     let memory = engine.memory_bytes();
     let measured = args.measure.then(|| measure::run(&mut engine, rate, args.measure_seconds, plan.block_frames, true));
 
@@ -181,6 +219,11 @@ pub fn run(args: PlanArgs) -> CmdResult {
             out["worst_callback_wall_pct"] = json!(m.max_wall_pct);
             out["p999_callback_pct"] = json!(m.p999_pct);
             out["measured_seconds"] = json!(m.audio_seconds);
+            out["late_results"] = json!(m.late);
+            out["worker_threads"] = json!(engine.worker_threads());
+        }
+        if args.realtime_workers {
+            out["worker_priorities"] = json!(priorities(&engine));
         }
         println!("{}", serde_json::to_string_pretty(&out)?);
         return Ok(());
@@ -226,17 +269,37 @@ pub fn run(args: PlanArgs) -> CmdResult {
     );
     println!("predicted    {predicted:.3}% of one core ({} model, all paths)", args.model);
     println!("memory       {:.1} MB", memory as f64 / 1e6);
+    if engine.worker_threads() > 0 {
+        println!("workers      {} thread(s)", engine.worker_threads());
+    }
+    if args.realtime_workers {
+        println!("priorities   {}", priorities(&engine).join(", "));
+    }
     if let Some(m) = measured {
         println!(
             "measured     {:.3}% of one core over {:.1} s of audio, paced; worst callback {:.1}% of the {:.3} ms \
-             deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%",
+             deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%, {} late results",
             m.mean_load_pct,
             m.audio_seconds,
             m.max_pct,
             ms(plan.block_frames),
             m.max_wall_pct,
-            m.p999_pct
+            m.p999_pct,
+            m.late
         );
     }
     Ok(())
+}
+
+/// What each worker was granted, in words.
+fn priorities(engine: &Engine) -> Vec<String> {
+    engine
+        .worker_priorities()
+        .into_iter()
+        .map(|p| match p {
+            Some(Ok(p)) => format!("SCHED_FIFO {p}"),
+            Some(Err(e)) => format!("refused (OS error {e}), normal priority"),
+            None => "not requested".to_string(),
+        })
+        .collect()
 }

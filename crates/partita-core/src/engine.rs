@@ -12,14 +12,28 @@ use crate::head::Head;
 use crate::ir::ImpulseResponse;
 use crate::kernel::Kernel;
 use crate::plan::Plan;
+use crate::plan::Schedule;
 use crate::ring::TimeRing;
 use crate::routing::{RouteMap, Routing};
+use crate::sliced::SlicedLevel;
+use crate::workers::{Lateness, WorkerLevel, WorkerSetup};
+
+/// A level of one routing group, run by its schedule.
+#[derive(Debug)]
+enum LevelSlot {
+    Sync(LevelRunner),
+    Workers(WorkerLevel),
+    Sliced(Box<SlicedLevel>),
+}
 
 /// Counters the audio thread updates and any thread may read.
 #[derive(Debug, Default)]
 struct Counters {
     frames_processed: AtomicU64,
     nonfinite_inputs: AtomicU64,
+    late_results: AtomicU64,
+    refused_jobs: AtomicU64,
+    worker_cpu_nanos: AtomicU64,
 }
 
 /// A read-only view of an engine's run-time counters, for the control side. Cheap to clone, `Send` and
@@ -39,6 +53,23 @@ impl Monitor {
     pub fn nonfinite_inputs(&self) -> u64 {
         self.counters.nonfinite_inputs.load(Ordering::Relaxed)
     }
+
+    /// Worker results that were not ready at their due boundary (after waiting at most
+    /// [`LATE_SPIN`](crate::LATE_SPIN)); those blocks went out without the level's contribution.
+    pub fn late_results(&self) -> u64 {
+        self.counters.late_results.load(Ordering::Relaxed)
+    }
+
+    /// Input blocks a worker level could not take because it was several periods behind (its output is
+    /// then wrong until the delay line has turned over): a sign of a machine far too slow for the plan.
+    pub fn refused_jobs(&self) -> u64 {
+        self.counters.refused_jobs.load(Ordering::Relaxed)
+    }
+
+    /// CPU seconds used by the engine's worker threads (thread CPU clocks), as of the last `process()`.
+    pub fn worker_cpu_seconds(&self) -> f64 {
+        self.counters.worker_cpu_nanos.load(Ordering::Relaxed) as f64 * 1e-9
+    }
 }
 
 /// Build-time options of an [`Engine`].
@@ -48,12 +79,19 @@ pub struct EngineOptions {
     pub max_host_frames: usize,
     /// Multiply-accumulate kernel; [`Kernel::detect`] by default.
     pub kernel: Kernel,
+    /// Ask for rate-monotonic real-time priorities (SCHED_FIFO, smaller levels higher) for worker
+    /// threads. Off by default: a spinning real-time thread can starve a small machine. When refused
+    /// (no privilege), the workers run at normal priority; [`Engine::worker_priorities`] says what was
+    /// granted.
+    pub realtime_workers: bool,
+    /// What to do when a worker result is late; [`Lateness::SpinThenDrop`] by default (real-time).
+    pub lateness: Lateness,
 }
 
 impl EngineOptions {
     /// Defaults for a host calling with at most `max_host_frames` frames.
     pub fn new(max_host_frames: usize) -> Self {
-        Self { max_host_frames, kernel: Kernel::detect() }
+        Self { max_host_frames, kernel: Kernel::detect(), realtime_workers: false, lateness: Lateness::default() }
     }
 }
 
@@ -83,7 +121,7 @@ pub struct Engine {
     inputs: Vec<TimeRing>,
     outputs: Vec<TimeRing>,
     head: Option<Head>,
-    levels: Vec<LevelRunner>,
+    levels: Vec<LevelSlot>,
     /// Input frames received since start or reset.
     now: i64,
     /// Frames into the current engine block.
@@ -145,6 +183,7 @@ impl Engine {
 
         let groups = routes.groups();
         let mut planner = RealFftPlanner::<f32>::new();
+        let mut complex_planner = rustfft::FftPlanner::<f32>::new();
         let mut levels = Vec::new();
         let mut input_reach = latency + plan.head_frames + b;
         let mut output_reach = b;
@@ -154,7 +193,8 @@ impl Engine {
             // d = s - N + latency - D: read the input as late as the level's result allows, so the result
             // lands at the next frame to emit plus D. The offset rule guarantees d >= 0.
             let delay = level.offset_frames + latency - n - due;
-            input_reach = input_reach.max(delay + 2 * n + b);
+            // Sliced jobs read their window during the whole period that follows.
+            input_reach = input_reach.max(delay + 3 * n + b);
             output_reach = output_reach.max(due + n + b);
             let period_blocks = (n / b) as u64;
             for (gi, (g_inputs, g_outputs)) in groups.iter().enumerate() {
@@ -192,7 +232,30 @@ impl Engine {
                 let phase_blocks = ((li * groups.len() + gi) as u64) % period_blocks;
                 let shape =
                     LevelShape { n, partitions: level.partitions, delay, lead: due, period_blocks, phase_blocks };
-                levels.push(LevelRunner::new(shape, &mut planner, g_inputs.clone(), outputs, level_ir));
+                let runner = LevelRunner::new(shape, &mut planner, g_inputs.clone(), outputs, level_ir);
+                levels.push(match level.schedule {
+                    Schedule::Sync => LevelSlot::Sync(runner),
+                    Schedule::Sliced => {
+                        LevelSlot::Sliced(Box::new(SlicedLevel::new(runner, &mut complex_planner, options.kernel)))
+                    }
+                    Schedule::Workers => {
+                        // Rate-monotonic: the smallest worker level gets the highest priority.
+                        let rank = plan
+                            .levels
+                            .iter()
+                            .filter(|l| l.schedule == Schedule::Workers && l.block_frames > n)
+                            .count();
+                        let setup = WorkerSetup {
+                            kernel: options.kernel,
+                            priority: options.realtime_workers.then_some(10 + rank as i32),
+                            name_index: li,
+                            lateness: options.lateness,
+                        };
+                        LevelSlot::Workers(
+                            WorkerLevel::spawn(runner, setup).map_err(|e| EngineError::Spawn(e.to_string()))?,
+                        )
+                    }
+                });
             }
         }
 
@@ -256,6 +319,7 @@ impl Engine {
         if bad > 0 {
             self.counters.nonfinite_inputs.fetch_add(bad, Ordering::Relaxed);
         }
+        self.publish_worker_counters();
         self.counters.frames_processed.fetch_add(frames as u64, Ordering::Relaxed);
         Ok(())
     }
@@ -278,14 +342,85 @@ impl Engine {
         Ok(())
     }
 
-    /// Runs every level whose input block has just completed.
+    /// Runs every level's work for the boundary that just passed: sync levels whose input block
+    /// completed, worker hand-offs, and each sliced level's share.
     fn block_boundary(&mut self) {
         let block = (self.now / self.plan.block_frames as i64) as u64;
         let emit = self.now - self.latency as i64;
         let kernel = self.options.kernel;
         for level in &mut self.levels {
-            if level.due_at(block) {
-                level.run_sync(&self.inputs, &mut self.outputs, self.now, emit, kernel);
+            match level {
+                LevelSlot::Sync(l) => {
+                    if l.due_at(block) {
+                        l.run_sync(&self.inputs, &mut self.outputs, self.now, emit, kernel);
+                    }
+                }
+                LevelSlot::Workers(w) => {
+                    if w.due_at(block) {
+                        w.at_boundary(&self.inputs, &mut self.outputs, self.now, emit);
+                    }
+                }
+                LevelSlot::Sliced(s) => {
+                    let release = s.due_at(block);
+                    s.at_boundary(&self.inputs, &mut self.outputs, self.now, emit, release);
+                }
+            }
+        }
+    }
+
+    /// Copies the worker levels' counters into the shared ones (plain stores, no allocation).
+    fn publish_worker_counters(&self) {
+        let (mut late, mut refused, mut cpu) = (0u64, 0u64, 0.0f64);
+        for level in &self.levels {
+            if let LevelSlot::Workers(w) = level {
+                late += w.late();
+                refused += w.refused();
+                cpu += w.cpu_seconds();
+            }
+        }
+        if late + refused > 0 || cpu > 0.0 {
+            self.counters.late_results.store(late, Ordering::Relaxed);
+            self.counters.refused_jobs.store(refused, Ordering::Relaxed);
+            self.counters.worker_cpu_nanos.store((cpu * 1e9) as u64, Ordering::Relaxed);
+        }
+    }
+
+    /// Cost units (butterflies, moves and multiply-accumulated bins, counted) done by sliced levels at
+    /// the last block boundary: for tests and benches that check the work is spread evenly.
+    #[doc(hidden)]
+    pub fn sliced_cost_last_boundary(&self) -> u64 {
+        self.levels.iter().map(|l| if let LevelSlot::Sliced(s) = l { s.last_cost } else { 0 }).sum()
+    }
+
+    /// Cost units of one whole job of every sliced level, with each level's period in blocks.
+    #[doc(hidden)]
+    pub fn sliced_job_costs(&self) -> Vec<(u64, u64)> {
+        self.levels
+            .iter()
+            .filter_map(|l| if let LevelSlot::Sliced(s) = l { Some((s.job_cost(), s.period_blocks())) } else { None })
+            .collect()
+    }
+
+    /// For each worker thread, the real-time priority granted (`Ok`), the OS error when refused
+    /// (`Err`), or `None` when none was asked for. Off the audio thread (allocates the list).
+    pub fn worker_priorities(&self) -> Vec<Option<Result<i32, i32>>> {
+        self.levels
+            .iter()
+            .filter_map(|l| if let LevelSlot::Workers(w) = l { Some(w.priority()) } else { None })
+            .collect()
+    }
+
+    /// Number of worker threads the engine runs.
+    pub fn worker_threads(&self) -> usize {
+        self.levels.iter().filter(|l| matches!(l, LevelSlot::Workers(_))).count()
+    }
+
+    /// Test hook: make every worker job take `delay` longer, to force late results.
+    #[doc(hidden)]
+    pub fn set_worker_test_delay(&self, delay: std::time::Duration) {
+        for level in &self.levels {
+            if let LevelSlot::Workers(w) = level {
+                w.set_test_delay(delay);
             }
         }
     }
@@ -297,7 +432,11 @@ impl Engine {
             r.clear();
         }
         for l in &mut self.levels {
-            l.clear();
+            match l {
+                LevelSlot::Sync(l) => l.clear(),
+                LevelSlot::Workers(w) => w.reset(),
+                LevelSlot::Sliced(s) => s.clear(),
+            }
         }
         self.now = 0;
         self.fill = 0;
@@ -350,7 +489,15 @@ impl Engine {
         let rings: usize = self.inputs.iter().chain(&self.outputs).map(|r| 4 * r.len()).sum();
         rings
             + self.head.as_ref().map_or(0, Head::memory_bytes)
-            + self.levels.iter().map(LevelRunner::memory_bytes).sum::<usize>()
+            + self
+                .levels
+                .iter()
+                .map(|l| match l {
+                    LevelSlot::Sync(l) => l.memory_bytes(),
+                    LevelSlot::Workers(w) => w.memory_bytes(),
+                    LevelSlot::Sliced(s) => s.memory_bytes(),
+                })
+                .sum::<usize>()
     }
 
     /// The multiply-accumulate kernel in use.
@@ -366,7 +513,11 @@ impl Engine {
             h.dirty(value);
         }
         for l in &mut self.levels {
-            l.dirty(value);
+            match l {
+                LevelSlot::Sync(l) => l.dirty(value),
+                LevelSlot::Workers(_) => {} // worker buffers belong to the worker thread
+                LevelSlot::Sliced(s) => s.dirty(value),
+            }
         }
     }
 }

@@ -180,6 +180,8 @@ pub enum EngineError {
     },
     /// `max_host_frames` was zero.
     MaxHostFramesZero,
+    /// A worker thread could not be started.
+    Spawn(String),
 }
 
 impl fmt::Display for EngineError {
@@ -193,6 +195,7 @@ impl fmt::Display for EngineError {
                  plan for at least {ir_frames} frames"
             ),
             Self::MaxHostFramesZero => write!(f, "max_host_frames is 0; hosts call with at least 1 frame"),
+            Self::Spawn(e) => write!(f, "could not start a worker thread: {e}"),
         }
     }
 }

@@ -193,12 +193,47 @@ impl LevelRunner {
         block % self.period_blocks == self.phase_blocks
     }
 
-    /// Transforms each group input's window ending `delay` frames before `now` into the delay line.
-    pub(crate) fn forward(&mut self, rings: &[TimeRing], now: i64) {
+    /// Frames between the newest input and the end of the window the level transforms.
+    pub(crate) fn window_start(&self, now: i64) -> i64 {
+        now - self.delay as i64 - 2 * self.n as i64
+    }
+
+    /// Group inputs (engine input indices).
+    pub(crate) fn inputs(&self) -> &[usize] {
+        &self.inputs
+    }
+
+    /// Group outputs (engine output indices).
+    pub(crate) fn output_count(&self) -> usize {
+        self.outputs.len()
+    }
+
+    /// Number of (input, IR) terms summed into group output `which`.
+    pub(crate) fn terms(&self, which: usize) -> usize {
+        self.outputs[which].terms.len()
+    }
+
+    /// Engine output index of group output `which`.
+    pub(crate) fn output_index(&self, which: usize) -> usize {
+        self.outputs[which].output
+    }
+
+    /// Level block N.
+    pub(crate) fn n(&self) -> usize {
+        self.n
+    }
+
+    /// Partitions P.
+    pub(crate) fn partitions(&self) -> usize {
+        self.partitions
+    }
+
+    /// Transforms each group input's `2N`-frame window (written into the buffer by `fill(input, buf)`)
+    /// into the delay line.
+    pub(crate) fn forward_with(&mut self, mut fill: impl FnMut(usize, &mut [f32])) {
         self.newest = (self.newest + 1) % self.partitions;
-        let start = now - self.delay as i64 - 2 * self.n as i64;
-        for (slot, &input) in self.fdl.iter_mut().zip(&self.inputs) {
-            rings[input].read(start, &mut self.time);
+        for (i, slot) in self.fdl.iter_mut().enumerate() {
+            fill(i, &mut self.time);
             // The sizes come from the same plan, so the only possible error cannot happen; ignore it
             // rather than panic on the audio thread.
             let _ = self.fwd.process_with_scratch(&mut self.time, &mut self.spec, &mut self.scratch);
@@ -206,41 +241,104 @@ impl LevelRunner {
         }
     }
 
-    /// Accumulates `sum_p X[k - p] H[p]` for group output `which` into the accumulator.
-    pub(crate) fn accumulate(&mut self, which: usize, kernel: Kernel) {
-        let bins = self.n + 1;
+    /// Advances the delay line by one slot (before storing a new block's spectra with
+    /// [`store_spectrum`](Self::store_spectrum)).
+    pub(crate) fn advance(&mut self) {
+        self.newest = (self.newest + 1) % self.partitions;
+    }
+
+    /// Stores bins `lo..lo + spec.len()` of group input `i`'s spectrum for the newest block.
+    pub(crate) fn store_spectrum_range(&mut self, i: usize, lo: usize, spec: &[Complex32]) {
+        let base = self.newest * self.fdl[i].bins + lo;
+        let f = &mut self.fdl[i];
+        for ((re, im), c) in f.re[base..base + spec.len()].iter_mut().zip(&mut f.im[base..base + spec.len()]).zip(spec)
+        {
+            *re = c.re;
+            *im = c.im;
+        }
+    }
+
+    /// The accumulator, split real and imaginary.
+    pub(crate) fn acc(&self) -> (&[f32], &[f32]) {
+        (&self.acc_re, &self.acc_im)
+    }
+
+    /// Zeroes the accumulator.
+    pub(crate) fn clear_acc(&mut self) {
         self.acc_re.fill(0.0);
         self.acc_im.fill(0.0);
-        let terms = &self.outputs[which].terms;
+    }
+
+    /// Adds partitions `parts` over bins `bins` of group output `which` into the accumulator.
+    pub(crate) fn mac_range(
+        &mut self,
+        which: usize,
+        kernel: Kernel,
+        parts: std::ops::Range<usize>,
+        bins: std::ops::Range<usize>,
+    ) {
         let p_count = self.partitions;
+        let (ar, ai) = (&mut self.acc_re[bins.clone()], &mut self.acc_im[bins.clone()]);
+        for &(input, ir) in &self.outputs[which].terms {
+            let x = &self.fdl[input];
+            let h = &self.ir.spectra[ir];
+            for p in parts.clone() {
+                let slot = (self.newest + p_count - p) % p_count;
+                let (xr, xi) = x.slot(slot);
+                let (hr, hi) = h.slot(p);
+                kernel.mac(ar, ai, &xr[bins.clone()], &xi[bins.clone()], &hr[bins.clone()], &hi[bins.clone()]);
+            }
+        }
+    }
+
+    /// The accumulator as interleaved complex bins with exact-zero DC and Nyquist imaginary parts.
+    pub(crate) fn acc_spectrum(&self, spec: &mut [Complex32]) {
+        for ((c, &re), &im) in spec.iter_mut().zip(&self.acc_re).zip(&self.acc_im) {
+            *c = Complex32::new(re, im);
+        }
+        spec[0].im = 0.0;
+        spec[self.n].im = 0.0;
+    }
+
+    /// Sets the result of group output `which` (N samples).
+    pub(crate) fn result_mut(&mut self, which: usize) -> &mut [f32] {
+        &mut self.results[which]
+    }
+
+    /// The result of group output `which`.
+    pub(crate) fn result(&self, which: usize) -> &[f32] {
+        &self.results[which]
+    }
+
+    /// Transforms each group input's window ending `delay` frames before `now` into the delay line.
+    pub(crate) fn forward(&mut self, rings: &[TimeRing], now: i64) {
+        let start = self.window_start(now);
+        let inputs = std::mem::take(&mut self.inputs);
+        self.forward_with(|i, buf| rings[inputs[i]].read(start, buf));
+        self.inputs = inputs;
+    }
+
+    /// Accumulates `sum_p X[k - p] H[p]` for group output `which` into the accumulator, in tiles of bins
+    /// so the accumulator stays in L1 while the partitions stream by.
+    pub(crate) fn accumulate(&mut self, which: usize, kernel: Kernel) {
+        let bins = self.n + 1;
+        self.clear_acc();
         let mut lo = 0;
         while lo < bins {
             let hi = (lo + TILE_BINS).min(bins);
-            let (ar, ai) = (&mut self.acc_re[lo..hi], &mut self.acc_im[lo..hi]);
-            for &(input, ir) in terms {
-                let x = &self.fdl[input];
-                let h = &self.ir.spectra[ir];
-                for p in 0..p_count {
-                    let slot = (self.newest + p_count - p) % p_count;
-                    let (xr, xi) = x.slot(slot);
-                    let (hr, hi_) = h.slot(p);
-                    kernel.mac(ar, ai, &xr[lo..hi], &xi[lo..hi], &hr[lo..hi], &hi_[lo..hi]);
-                }
-            }
+            self.mac_range(which, kernel, 0..self.partitions, lo..hi);
             lo = hi;
         }
     }
 
     /// Inverse-transforms the accumulator into the result for group output `which`.
     pub(crate) fn inverse(&mut self, which: usize) {
-        for ((c, &re), &im) in self.spec.iter_mut().zip(&self.acc_re).zip(&self.acc_im) {
-            *c = Complex32::new(re, im);
-        }
-        // Spectra of real signals have real DC and Nyquist bins; force exact zeros so the inverse
-        // accepts them (it reports, but still computes, when they are not).
-        self.spec[0].im = 0.0;
-        self.spec[self.n].im = 0.0;
-        let _ = self.inv.process_with_scratch(&mut self.spec, &mut self.time, &mut self.scratch);
+        let mut spec = std::mem::take(&mut self.spec);
+        self.acc_spectrum(&mut spec);
+        // DC and Nyquist are exactly real, so the inverse cannot report bad input; ignore the result
+        // rather than panic on the audio thread.
+        let _ = self.inv.process_with_scratch(&mut spec, &mut self.time, &mut self.scratch);
+        self.spec = spec;
         self.results[which].copy_from_slice(&self.time[self.n..]);
     }
 

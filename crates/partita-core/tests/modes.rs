@@ -14,6 +14,11 @@ fn planners(b: usize) -> Vec<(&'static str, Planner)> {
         ("zero-optimal", Planner::new().block_frames(b).zero_latency(true)),
         // Small level caps force many levels on short IRs, exercising level transitions.
         ("optimal-capped", Planner::new().block_frames(b).max_level_frames(4 * b)),
+        ("optimal-workers", Planner::new().block_frames(b).schedule(Schedule::Workers)),
+        ("optimal-sliced", Planner::new().block_frames(b).schedule(Schedule::Sliced)),
+        ("zero-workers", Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Workers)),
+        ("zero-sliced", Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Sliced)),
+        ("sliced-capped", Planner::new().block_frames(b).schedule(Schedule::Sliced).max_level_frames(8 * b.max(2))),
     ]
 }
 

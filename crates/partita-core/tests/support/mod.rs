@@ -2,7 +2,7 @@
 #![allow(dead_code)]
 
 use partita_core::synth::Noise;
-use partita_core::{naive, Engine, ImpulseResponse, Plan, Routing};
+use partita_core::{naive, Engine, EngineOptions, ImpulseResponse, Lateness, Plan, Routing};
 
 /// Every routing with an IR channel count that fits it.
 pub fn routings() -> Vec<(Routing, usize)> {
@@ -94,7 +94,9 @@ pub fn check_against_oracle(
     seed: u64,
 ) -> (f64, f64) {
     let max_host = 1 + (seed as usize * 37) % 700;
-    let mut engine = Engine::new(plan, ir, routing, max_host).unwrap();
+    // Callbacks here come far faster than real time: let worker levels be waited for.
+    let options = EngineOptions { lateness: Lateness::Wait, ..EngineOptions::new(max_host) };
+    let mut engine = Engine::with_options(plan, ir, routing, options).unwrap();
     let input = random_input(routing.inputs(), input_frames, seed ^ 0xABCD);
     let total = input_frames + ir.frames() - 1 + engine.latency_frames();
     let got = stream(&mut engine, &input, total, random_sizes(seed, max_host));

@@ -1,0 +1,373 @@
+//! The `workers` schedule: a level's work as a periodic job on a worker thread (Battenberg & Avizienis,
+//! DAFx-11). The job for an input block is released when the block completes and is due one level period
+//! (N frames) later, at the boundary where the next job is released.
+//!
+//! Hand-off protocol, all lock-free (the audio thread never blocks; waking the worker is a futex post
+//! through [`std::thread::Thread::unpark`]):
+//! - job `j` uses slot `j % SLOTS` for its N new input frames and its N result frames per output;
+//! - the audio thread writes input slot `j % SLOTS` only when `completed + SLOTS > j` (the worker is done
+//!   with job `j - SLOTS`), then publishes `released = j + 1` (release ordering);
+//! - the worker reads job `j`'s input after seeing `released > j` (acquire), writes its result, then
+//!   publishes `completed = j + 1` (release);
+//! - at the due boundary the audio thread reads the result after seeing `completed > j` (acquire), waiting
+//!   at most [`LATE_SPIN`]; if the result is still not there it is abandoned (`abandoned = j + 1`), the
+//!   block goes out without the level's contribution, and `late_results` counts it. The worker still
+//!   pushes every block into its delay line, so later blocks stay correct; it skips the multiply and
+//!   inverse FFT of abandoned jobs to catch up.
+
+use std::cell::UnsafeCell;
+use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
+use std::sync::Arc;
+use std::thread::{JoinHandle, Thread};
+use std::time::{Duration, Instant};
+
+use crate::denormal::DenormalGuard;
+use crate::fdl::LevelRunner;
+use crate::kernel::Kernel;
+use crate::ring::TimeRing;
+
+/// How long the audio thread waits for a late worker result before going on without it.
+pub const LATE_SPIN: Duration = Duration::from_micros(20);
+
+/// What the audio thread does when a worker result is not ready at its due boundary.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Lateness {
+    /// Wait at most [`LATE_SPIN`], then go on without the level's contribution for that block and count
+    /// it (`Monitor::late_results`). The real-time policy.
+    #[default]
+    SpinThenDrop,
+    /// Wait until the result is there. Never use it on a real-time thread: it is for offline rendering
+    /// and tests, where callbacks come faster than real time.
+    Wait,
+}
+
+/// Jobs in flight per worker level (input and result slots).
+const SLOTS: usize = 4;
+
+/// Worker threads alive in this process (for tests that check shutdown).
+static LIVE_WORKERS: AtomicUsize = AtomicUsize::new(0);
+
+/// Number of engine worker threads currently alive in this process.
+#[doc(hidden)]
+pub fn live_worker_threads() -> usize {
+    LIVE_WORKERS.load(Ordering::SeqCst)
+}
+
+/// A buffer one side writes and the other reads, ordered by the atomics of [`Shared`].
+struct Slot(UnsafeCell<Box<[f32]>>);
+
+struct Shared {
+    n: usize,
+    outputs: usize,
+    input_slots: Box<[Slot]>,
+    output_slots: Box<[Slot]>,
+    /// Per slot: the reset epoch of the job in it.
+    slot_epoch: Box<[AtomicU64]>,
+    released: AtomicU64,
+    completed: AtomicU64,
+    abandoned: AtomicU64,
+    shutdown: AtomicBool,
+    cpu_nanos: AtomicU64,
+    /// Set by the worker once it is running and will not allocate again.
+    ready: AtomicBool,
+    /// Test hook: extra time each job takes, in microseconds.
+    delay_micros: AtomicU64,
+    /// Granted SCHED_FIFO priority, or a negative OS error; `i64::MIN` until the thread reports.
+    priority: std::sync::atomic::AtomicI64,
+}
+
+// SAFETY: the slot buffers are only accessed under the release/acquire protocol described in the
+// module docs, which gives each buffer exactly one accessor at a time; everything else is atomic.
+unsafe impl Sync for Shared {}
+
+/// Audio-thread side of a worker level.
+pub(crate) struct WorkerLevel {
+    shared: Arc<Shared>,
+    thread: Option<JoinHandle<()>>,
+    waker: Thread,
+    pub(crate) period_blocks: u64,
+    pub(crate) phase_blocks: u64,
+    delay: usize,
+    inputs: Vec<usize>,
+    outputs: Vec<usize>,
+    next_job: u64,
+    epoch: u64,
+    /// The released job whose result is due at the next release boundary, and where it lands.
+    outstanding: Option<(u64, i64)>,
+    late: u64,
+    refused: u64,
+    memory: usize,
+    lateness: Lateness,
+}
+
+impl std::fmt::Debug for WorkerLevel {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("WorkerLevel")
+            .field("block_frames", &self.shared.n)
+            .field("period_blocks", &self.period_blocks)
+            .field("phase_blocks", &self.phase_blocks)
+            .field("late", &self.late)
+            .finish_non_exhaustive()
+    }
+}
+
+/// Worker start-up options.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct WorkerSetup {
+    pub(crate) kernel: Kernel,
+    /// SCHED_FIFO priority to request, if any.
+    pub(crate) priority: Option<i32>,
+    pub(crate) lateness: Lateness,
+    pub(crate) name_index: usize,
+}
+
+impl WorkerLevel {
+    /// Moves `runner` onto a new worker thread. Allocates and spawns.
+    pub(crate) fn spawn(runner: LevelRunner, setup: WorkerSetup) -> std::io::Result<Self> {
+        let n = runner.n();
+        let memory = runner.memory_bytes() + 4 * SLOTS * n * (runner.inputs().len() + runner.output_count());
+        let inputs = runner.inputs().to_vec();
+        let outputs: Vec<usize> = (0..runner.output_count()).map(|w| runner.output_index(w)).collect();
+        let slot = |len: usize| Slot(UnsafeCell::new(vec![0.0f32; len].into_boxed_slice()));
+        let shared = Arc::new(Shared {
+            n,
+            outputs: outputs.len(),
+            input_slots: (0..SLOTS).map(|_| slot(inputs.len() * n)).collect(),
+            output_slots: (0..SLOTS).map(|_| slot(outputs.len() * n)).collect(),
+            slot_epoch: (0..SLOTS).map(|_| AtomicU64::new(0)).collect(),
+            released: AtomicU64::new(0),
+            completed: AtomicU64::new(0),
+            abandoned: AtomicU64::new(0),
+            shutdown: AtomicBool::new(false),
+            cpu_nanos: AtomicU64::new(0),
+            ready: AtomicBool::new(false),
+            delay_micros: AtomicU64::new(0),
+            priority: std::sync::atomic::AtomicI64::new(i64::MIN),
+        });
+        let (period_blocks, phase_blocks, delay) = (runner.period_blocks, runner.phase_blocks, runner.delay);
+        let worker_shared = Arc::clone(&shared);
+        let windows: Vec<Vec<f32>> = (0..inputs.len()).map(|_| vec![0.0f32; 2 * n]).collect();
+        let thread = std::thread::Builder::new()
+            .name(format!("partita-level-{}", setup.name_index))
+            .spawn(move || worker_main(runner, windows, worker_shared, setup))?;
+        let waker = thread.thread().clone();
+        // Wait (off the audio thread) until the worker has done its start-up allocations, so that
+        // everything after construction is allocation-free on every thread.
+        while !shared.ready.load(Ordering::Acquire) {
+            std::thread::yield_now();
+        }
+        Ok(Self {
+            shared,
+            thread: Some(thread),
+            waker,
+            period_blocks,
+            phase_blocks,
+            delay,
+            inputs,
+            outputs,
+            next_job: 0,
+            epoch: 0,
+            outstanding: None,
+            late: 0,
+            refused: 0,
+            memory,
+            lateness: setup.lateness,
+        })
+    }
+
+    pub(crate) fn due_at(&self, block: u64) -> bool {
+        block % self.period_blocks == self.phase_blocks
+    }
+
+    /// At a release boundary: collect the job due now, then release the job for the block that just
+    /// completed. Returns (late results, refused releases) added by this call.
+    pub(crate) fn at_boundary(&mut self, inputs: &[TimeRing], outputs: &mut [TimeRing], now: i64, emit: i64) {
+        let n = self.shared.n;
+        if let Some((job, at)) = self.outstanding.take() {
+            if self.wait_completed(job) {
+                // SAFETY: `completed > job` was observed with acquire ordering, so the worker has
+                // finished writing this slot, and it will not touch it again before job + SLOTS is
+                // released, which only this thread does, later.
+                let result = unsafe { &*self.shared.output_slots[(job % SLOTS as u64) as usize].0.get() };
+                for (o, &out) in self.outputs.iter().enumerate() {
+                    outputs[out].add(at, &result[o * n..(o + 1) * n]);
+                }
+            } else {
+                self.shared.abandoned.store(job + 1, Ordering::Release);
+                self.late += 1;
+            }
+        }
+        let job = self.next_job;
+        if self.lateness == Lateness::Wait {
+            while self.shared.completed.load(Ordering::Acquire) + (SLOTS as u64) <= job {
+                std::thread::yield_now();
+            }
+        }
+        if self.shared.completed.load(Ordering::Acquire) + SLOTS as u64 > job {
+            let slot = (job % SLOTS as u64) as usize;
+            // SAFETY: the worker finished job - SLOTS (the previous user of this slot), observed above
+            // with acquire ordering, and it reads this slot only after the release below.
+            let buf = unsafe { &mut *self.shared.input_slots[slot].0.get() };
+            let start = now - self.delay as i64 - n as i64;
+            for (i, &input) in self.inputs.iter().enumerate() {
+                inputs[input].read(start, &mut buf[i * n..(i + 1) * n]);
+            }
+            self.shared.slot_epoch[slot].store(self.epoch, Ordering::Relaxed);
+            self.shared.released.store(job + 1, Ordering::Release);
+            self.waker.unpark();
+            self.next_job += 1;
+            // Due one period later; lands at the next frame to emit plus N.
+            self.outstanding = Some((job, emit + n as i64));
+        } else {
+            // The worker is SLOTS jobs behind: this block cannot enter its delay line.
+            self.refused += 1;
+        }
+    }
+
+    fn wait_completed(&self, job: u64) -> bool {
+        if self.shared.completed.load(Ordering::Acquire) > job {
+            return true;
+        }
+        if self.lateness == Lateness::Wait {
+            while self.shared.completed.load(Ordering::Acquire) <= job {
+                std::thread::yield_now();
+            }
+            return true;
+        }
+        let until = Instant::now() + LATE_SPIN;
+        while Instant::now() < until {
+            std::hint::spin_loop();
+            if self.shared.completed.load(Ordering::Acquire) > job {
+                return true;
+            }
+        }
+        false
+    }
+
+    /// Forgets in-flight work; the worker clears its delay line before its next job.
+    pub(crate) fn reset(&mut self) {
+        if let Some((job, _)) = self.outstanding.take() {
+            self.shared.abandoned.store(job + 1, Ordering::Release);
+        }
+        self.epoch += 1;
+    }
+
+    pub(crate) fn late(&self) -> u64 {
+        self.late
+    }
+
+    pub(crate) fn refused(&self) -> u64 {
+        self.refused
+    }
+
+    pub(crate) fn cpu_seconds(&self) -> f64 {
+        self.shared.cpu_nanos.load(Ordering::Relaxed) as f64 * 1e-9
+    }
+
+    /// The priority the worker was granted: `Some(Ok(p))`, `Some(Err(errno))`, or `None` when none was
+    /// asked for or the thread has not started yet.
+    pub(crate) fn priority(&self) -> Option<Result<i32, i32>> {
+        match self.shared.priority.load(Ordering::Relaxed) {
+            i64::MIN => None,
+            p if p >= 0 => Some(Ok(p as i32)),
+            e => Some(Err((-e) as i32)),
+        }
+    }
+
+    /// Bytes of the hand-off slots (the worker's own level state is counted by its runner before the
+    /// move; see `memory_bytes` of the level).
+    pub(crate) fn memory_bytes(&self) -> usize {
+        self.memory
+    }
+
+    pub(crate) fn set_test_delay(&self, delay: Duration) {
+        self.shared.delay_micros.store(delay.as_micros() as u64, Ordering::Relaxed);
+    }
+}
+
+impl Drop for WorkerLevel {
+    fn drop(&mut self) {
+        self.shared.shutdown.store(true, Ordering::Release);
+        self.waker.unpark();
+        if let Some(t) = self.thread.take() {
+            let _ = t.join();
+        }
+    }
+}
+
+fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<Shared>, setup: WorkerSetup) {
+    LIVE_WORKERS.fetch_add(1, Ordering::SeqCst);
+    struct Alive;
+    impl Drop for Alive {
+        fn drop(&mut self) {
+            LIVE_WORKERS.fetch_sub(1, Ordering::SeqCst);
+        }
+    }
+    let _alive = Alive;
+    let _flush = DenormalGuard::new();
+    if let Some(p) = setup.priority {
+        let granted = crate::threads::try_realtime_priority(p);
+        shared.priority.store(
+            match granted {
+                Ok(p) => i64::from(p),
+                Err(e) => -i64::from(e.max(1)),
+            },
+            Ordering::Relaxed,
+        );
+    }
+    let n = shared.n;
+    // Touch the parking machinery and the CPU clock once before reporting ready.
+    std::thread::park_timeout(Duration::ZERO);
+    let _ = crate::threads::thread_cpu_seconds();
+    shared.ready.store(true, Ordering::Release);
+    let mut epoch = 0u64;
+    let mut taken = 0u64;
+    loop {
+        if shared.shutdown.load(Ordering::Acquire) {
+            break;
+        }
+        if shared.released.load(Ordering::Acquire) <= taken {
+            std::thread::park();
+            continue;
+        }
+        let c0 = crate::threads::thread_cpu_seconds();
+        let job = taken;
+        let slot = (job % SLOTS as u64) as usize;
+        let job_epoch = shared.slot_epoch[slot].load(Ordering::Relaxed);
+        if job_epoch != epoch {
+            epoch = job_epoch;
+            runner.clear();
+            for w in &mut windows {
+                w.fill(0.0);
+            }
+        }
+        {
+            // SAFETY: `released > job` was observed with acquire ordering; the audio thread will not
+            // write this slot again until `completed > job`, published below.
+            let input = unsafe { &*shared.input_slots[slot].0.get() };
+            for (i, w) in windows.iter_mut().enumerate() {
+                w.copy_within(n.., 0);
+                w[n..].copy_from_slice(&input[i * n..(i + 1) * n]);
+            }
+        }
+        runner.forward_with(|i, buf| buf.copy_from_slice(&windows[i]));
+        if shared.abandoned.load(Ordering::Acquire) <= job {
+            // SAFETY: the audio thread reads this slot only after `completed > job`, and has finished
+            // reading the slot's previous job (job - SLOTS) before releasing this one.
+            let out = unsafe { &mut *shared.output_slots[slot].0.get() };
+            for w in 0..shared.outputs {
+                runner.accumulate(w, setup.kernel);
+                runner.inverse(w);
+                out[w * n..(w + 1) * n].copy_from_slice(runner.result(w));
+            }
+        }
+        let extra = shared.delay_micros.load(Ordering::Relaxed);
+        if extra > 0 {
+            std::thread::sleep(Duration::from_micros(extra));
+        }
+        let c1 = crate::threads::thread_cpu_seconds();
+        shared.cpu_nanos.fetch_add(((c1 - c0).max(0.0) * 1e9) as u64, Ordering::Relaxed);
+        taken += 1;
+        shared.completed.store(taken, Ordering::Release);
+    }
+}
