@@ -1,0 +1,1 @@
+//! Live audio through a Partita engine (in progress).
