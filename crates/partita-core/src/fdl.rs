@@ -14,7 +14,7 @@ use realfft::num_complex::Complex32;
 use realfft::{ComplexToReal, RealFftPlanner, RealToComplex};
 
 use crate::kernel::Kernel;
-use crate::ring::TimeRing;
+use crate::ring::{prefaulted, TimeRing};
 
 /// Bins per accumulation tile: 256 bins of re + im accumulators stay in L1 while partitions stream by.
 const TILE_BINS: usize = 256;
@@ -29,7 +29,7 @@ pub(crate) struct Spectra {
 
 impl Spectra {
     fn new(slots: usize, bins: usize) -> Self {
-        Self { re: vec![0.0; slots * bins], im: vec![0.0; slots * bins], bins }
+        Self { re: prefaulted(slots * bins), im: prefaulted(slots * bins), bins }
     }
 
     fn slot(&self, s: usize) -> (&[f32], &[f32]) {

@@ -33,6 +33,7 @@ pub struct Planner {
     model: CostModel,
     shape: Shape,
     max_level_frames: usize,
+    min_sliced_frames: usize,
 }
 
 impl Default for Planner {
@@ -53,6 +54,7 @@ impl Planner {
             model: CostModel::default(),
             shape: Shape::MONO,
             max_level_frames: 1 << 16,
+            min_sliced_frames: 2048,
         }
     }
 
@@ -68,7 +70,8 @@ impl Planner {
         self
     }
 
-    /// The schedule of every level larger than the engine block (level-0 blocks are always `sync`).
+    /// The schedule of every level larger than the engine block (level-0 blocks are always `sync`; with
+    /// `sliced`, so are levels below [`min_sliced_frames`](Self::min_sliced_frames)).
     pub fn schedule(mut self, schedule: Schedule) -> Self {
         self.schedule = schedule;
         self
@@ -98,16 +101,23 @@ impl Planner {
         self
     }
 
+    /// With the `sliced` schedule, levels smaller than this stay `sync`: their whole job is cheaper
+    /// than the slicing overhead and well inside one callback (default 2,048 frames).
+    pub fn min_sliced_frames(mut self, frames: usize) -> Self {
+        self.min_sliced_frames = frames;
+        self
+    }
+
     /// The cost model in use.
     pub fn model(&self) -> &CostModel {
         &self.model
     }
 
     fn schedule_for(&self, level_block_frames: usize) -> Schedule {
-        if level_block_frames == self.block_frames {
-            Schedule::Sync
-        } else {
-            self.schedule
+        match self.schedule {
+            _ if level_block_frames == self.block_frames => Schedule::Sync,
+            Schedule::Sliced if level_block_frames < self.min_sliced_frames => Schedule::Sync,
+            s => s,
         }
     }
 

@@ -14,7 +14,7 @@ impl TimeRing {
     /// A zeroed ring holding at least `min_len` frames. Allocates.
     pub(crate) fn new(min_len: usize) -> Self {
         let len = min_len.max(1).next_power_of_two();
-        Self { data: vec![0.0; len], mask: len - 1 }
+        Self { data: prefaulted(len), mask: len - 1 }
     }
 
     pub(crate) fn len(&self) -> usize {
@@ -83,6 +83,19 @@ fn sanitize_into(dst: &mut [f32], src: &[f32]) -> u64 {
     bad
 }
 
+/// A vector of `len` default values whose memory pages are all written once now, so that the audio
+/// thread never takes a first-touch page fault on them later (large zeroed allocations are mapped
+/// lazily by the OS). Allocates.
+pub(crate) fn prefaulted<T: Copy + Default>(len: usize) -> Vec<T> {
+    let mut v = vec![T::default(); len];
+    let step = (4096 / std::mem::size_of::<T>().max(1)).max(1);
+    for i in (0..len).step_by(step) {
+        // SAFETY: `i < len`, so the pointer is in bounds and properly aligned for T.
+        unsafe { std::ptr::write_volatile(v.as_mut_ptr().add(i), T::default()) };
+    }
+    v
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -107,3 +120,4 @@ mod tests {
         assert_eq!(two, [5.0, 6.0]);
     }
 }
+

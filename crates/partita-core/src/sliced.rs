@@ -10,7 +10,7 @@ use rustfft::FftPlanner;
 use crate::fdl::LevelRunner;
 use crate::fourstep::FourStep;
 use crate::kernel::Kernel;
-use crate::ring::TimeRing;
+use crate::ring::{prefaulted, TimeRing};
 
 /// Samples copied or bins split per step.
 const CHUNK: usize = 2048;
@@ -132,16 +132,15 @@ impl SlicedLevel {
         }
         steps.push((Step::Deliver, (outputs * n) as u64));
         let total_cost = steps.iter().map(|s| s.1).sum();
-        let z = Complex32::new(0.0, 0.0);
         Self {
             runner,
             fs,
             steps,
             total_cost,
-            packed: vec![z; n],
-            work: vec![z; n],
-            done: vec![z; n],
-            spec: vec![z; n + 1],
+            packed: prefaulted(n),
+            work: prefaulted(n),
+            done: prefaulted(n),
+            spec: prefaulted(n + 1),
             chunk: vec![0.0; 2 * CHUNK],
             cursor: 0,
             spent: 0,

@@ -128,7 +128,7 @@ impl WorkerLevel {
         let memory = runner.memory_bytes() + 4 * SLOTS * n * (runner.inputs().len() + runner.output_count());
         let inputs = runner.inputs().to_vec();
         let outputs: Vec<usize> = (0..runner.output_count()).map(|w| runner.output_index(w)).collect();
-        let slot = |len: usize| Slot(UnsafeCell::new(vec![0.0f32; len].into_boxed_slice()));
+        let slot = |len: usize| Slot(UnsafeCell::new(crate::ring::prefaulted::<f32>(len).into_boxed_slice()));
         let shared = Arc::new(Shared {
             n,
             outputs: outputs.len(),

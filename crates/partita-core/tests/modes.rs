@@ -15,9 +15,13 @@ fn planners(b: usize) -> Vec<(&'static str, Planner)> {
         // Small level caps force many levels on short IRs, exercising level transitions.
         ("optimal-capped", Planner::new().block_frames(b).max_level_frames(4 * b)),
         ("optimal-workers", Planner::new().block_frames(b).schedule(Schedule::Workers)),
-        ("optimal-sliced", Planner::new().block_frames(b).schedule(Schedule::Sliced)),
+        // min_sliced_frames(0): slice every level above the block, even small ones, to exercise slicing.
+        ("optimal-sliced", Planner::new().block_frames(b).schedule(Schedule::Sliced).min_sliced_frames(0)),
         ("zero-workers", Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Workers)),
-        ("zero-sliced", Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Sliced)),
+        (
+            "zero-sliced",
+            Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Sliced).min_sliced_frames(0),
+        ),
         ("sliced-capped", Planner::new().block_frames(b).schedule(Schedule::Sliced).max_level_frames(8 * b.max(2))),
     ]
 }

@@ -39,7 +39,13 @@ impl Search<'_> {
                 continue; // the same size again is more partitions of the previous level
             }
             let n = m * self.b;
-            let schedule = if m == 1 { Schedule::Sync } else { self.schedule };
+            // As the planner documents: level-0 blocks are sync, and so are sliced levels below
+            // `min_sliced_frames` (set to MIN_SLICED below).
+            let schedule = match self.schedule {
+                _ if m == 1 => Schedule::Sync,
+                Schedule::Sliced if n < MIN_SLICED => Schedule::Sync,
+                s => s,
+            };
             let probe = Level { block_frames: n, partitions: 1, offset_frames: offset * self.b, schedule };
             if offset * self.b < probe.min_offset_frames(self.b, self.zero) {
                 continue;
@@ -58,6 +64,9 @@ impl Search<'_> {
         }
     }
 }
+
+/// `min_sliced_frames` for the exhaustive comparison: with B = 4, levels of 8 frames stay sync.
+const MIN_SLICED: usize = 12;
 
 fn measured_model() -> CostModel {
     // A made-up machine whose big FFTs are relatively dear (cache misses): tests the DP under a model
@@ -88,7 +97,8 @@ fn optimal_equals_exhaustive_search_on_small_problems() {
                     .zero_latency(zero)
                     .schedule(schedule)
                     .cost_model(model.clone())
-                    .max_level_frames(cap * b);
+                    .max_level_frames(cap * b)
+                    .min_sliced_frames(MIN_SLICED);
                 let plan = planner.plan(ir_frames).unwrap();
                 plan.validate().unwrap();
                 let dp = model.plan_cost(&plan, Shape::MONO);

@@ -20,7 +20,13 @@ fn workers_and_sliced_levels_never_touch_the_heap_on_any_thread() {
     {
         for (routing, channels) in [(Routing::Stereo, 2usize), (Routing::TrueStereo, 4)] {
             let ir = random_ir(channels, 30_000, 7);
-            let plan = Planner::new().block_frames(32).zero_latency(zero).schedule(schedule).plan(30_000).unwrap();
+            let plan = Planner::new()
+                .block_frames(32)
+                .zero_latency(zero)
+                .schedule(schedule)
+                .min_sliced_frames(0)
+                .plan(30_000)
+                .unwrap();
             assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{:?}", plan.levels);
             let mut engine = Engine::new(&plan, &ir, routing, 256).unwrap();
             let monitor = engine.monitor();

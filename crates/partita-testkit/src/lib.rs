@@ -13,6 +13,8 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 
 thread_local! {
     static ARMED_HERE: Cell<bool> = const { Cell::new(false) };
+    /// Heap operations counted on this thread while armed here (other threads' traps never add to it).
+    static HERE_COUNT: Cell<u64> = const { Cell::new(0) };
 }
 static ARMED_EVERYWHERE: AtomicBool = AtomicBool::new(false);
 static VIOLATIONS: AtomicU64 = AtomicU64::new(0);
@@ -27,8 +29,10 @@ static VIOLATIONS: AtomicU64 = AtomicU64::new(0);
 pub struct TrapAllocator;
 
 fn note() {
-    let here = ARMED_HERE.try_with(Cell::get).unwrap_or(false);
-    if here || ARMED_EVERYWHERE.load(Ordering::Relaxed) {
+    if ARMED_HERE.try_with(Cell::get).unwrap_or(false) {
+        let _ = HERE_COUNT.try_with(|c| c.set(c.get() + 1));
+    }
+    if ARMED_EVERYWHERE.load(Ordering::Relaxed) {
         VIOLATIONS.fetch_add(1, Ordering::Relaxed);
     }
 }
@@ -61,11 +65,11 @@ unsafe impl GlobalAlloc for TrapAllocator {
 /// Runs `f` with the trap armed on the current thread; returns `f`'s value and the heap operations
 /// `f` made on this thread.
 pub fn armed<T>(f: impl FnOnce() -> T) -> (T, u64) {
-    let before = VIOLATIONS.load(Ordering::SeqCst);
+    let before = HERE_COUNT.with(Cell::get);
     ARMED_HERE.with(|a| a.set(true));
     let out = f();
     ARMED_HERE.with(|a| a.set(false));
-    (out, VIOLATIONS.load(Ordering::SeqCst) - before)
+    (out, HERE_COUNT.with(Cell::get) - before)
 }
 
 /// Runs `f` with the trap armed on every thread of the process (engine workers included); returns
