@@ -17,14 +17,24 @@ struct Cli {
 
 #[derive(Debug, Subcommand)]
 enum Command {
+    /// Render the synthetic demo: a dry phrase through two imagined spaces (wet 0.35, dry 0.65, peak -1 dBFS), with
+    /// plans and measured cost.
+    Demo(cmd::demo::DemoArgs),
+    /// Convolve WAV files with an impulse response (offline, the full convolution).
+    Render(cmd::render::RenderArgs),
     /// Choose a partition for an IR length and a block size or latency budget; show its cost.
     Plan(cmd::plan::PlanArgs),
+    /// (Maintainers) Regenerate the synthetic demo IRs and dry phrase of demo-data/.
+    MakeDemoData(cmd::demo_data::MakeDemoDataArgs),
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
     let result = match cli.command {
+        Command::Demo(args) => cmd::demo::run(args),
+        Command::Render(args) => cmd::render::run(args),
         Command::Plan(args) => cmd::plan::run(args),
+        Command::MakeDemoData(args) => cmd::demo_data::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

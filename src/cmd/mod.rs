@@ -1,6 +1,9 @@
-//! One module per subcommand.
+//! One module per subcommand, and the few helpers they share.
 
+pub mod demo;
+pub mod demo_data;
 pub mod plan;
+pub mod render;
 
 /// What a subcommand returns: an error becomes one line on stderr and exit code 1.
 pub type CmdResult = Result<(), Box<dyn std::error::Error>>;
@@ -39,4 +42,34 @@ pub fn ir_channels_for(routing: partita_core::Routing) -> usize {
         Routing::TrueStereo => 4,
         Routing::Matrix { inputs, outputs } => inputs * outputs,
     }
+}
+
+/// Prints a plan's levels as the table `partita plan` shows: one row per level (block, partitions, IR
+/// offset, taps, schedule), the direct-form head first when there is one.
+pub fn print_levels(plan: &partita_core::Plan) {
+    println!("  {:<6} {:>8} {:>11} {:>10} {:>10}  schedule", "level", "block", "partitions", "offset", "taps");
+    if plan.head_frames > 0 {
+        println!("  {:<6} {:>8} {:>11} {:>10} {:>10}  direct form", "head", "-", "-", 0, plan.head_frames);
+    }
+    for (i, l) in plan.levels.iter().enumerate() {
+        println!(
+            "  {:<6} {:>8} {:>11} {:>10} {:>10}  {}",
+            i,
+            l.block_frames,
+            l.partitions,
+            l.offset_frames,
+            l.block_frames * l.partitions,
+            l.schedule
+        );
+    }
+}
+
+/// A plan's levels in the compact `--levels` notation, e.g. `64x15,512x14` (block x partitions).
+pub fn levels_list(plan: &partita_core::Plan) -> String {
+    plan.levels.iter().map(|l| format!("{}x{}", l.block_frames, l.partitions)).collect::<Vec<_>>().join(",")
+}
+
+/// `20 log10(x)`, for peaks (negative infinity for 0).
+pub fn dbfs(x: f64) -> f64 {
+    20.0 * x.log10()
 }

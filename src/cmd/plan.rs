@@ -217,6 +217,8 @@ pub fn run(args: PlanArgs) -> CmdResult {
             out["measured_load_pct"] = json!(m.mean_load_pct);
             out["worst_callback_pct"] = json!(m.max_pct);
             out["worst_callback_wall_pct"] = json!(m.max_wall_pct);
+            out["p50_callback_pct"] = json!(m.p50_pct);
+            out["p99_callback_pct"] = json!(m.p99_pct);
             out["p999_callback_pct"] = json!(m.p999_pct);
             out["measured_seconds"] = json!(m.audio_seconds);
             out["late_results"] = json!(m.late);
@@ -239,21 +241,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         println!("chosen: {why}");
     }
     println!();
-    println!("  {:<6} {:>8} {:>11} {:>10} {:>10}  schedule", "level", "block", "partitions", "offset", "taps");
-    if plan.head_frames > 0 {
-        println!("  {:<6} {:>8} {:>11} {:>10} {:>10}  direct form", "head", "-", "-", 0, plan.head_frames);
-    }
-    for (i, l) in plan.levels.iter().enumerate() {
-        println!(
-            "  {:<6} {:>8} {:>11} {:>10} {:>10}  {}",
-            i,
-            l.block_frames,
-            l.partitions,
-            l.offset_frames,
-            l.block_frames * l.partitions,
-            l.schedule
-        );
-    }
+    super::print_levels(&plan);
     println!();
     println!(
         "latency      {} frames ({:.3} ms){}",
