@@ -13,16 +13,7 @@ use partita_core::{Engine, ImpulseResponse, Plan, Routing};
 use partita_testkit::ErrorBound;
 
 fn python() -> Option<PathBuf> {
-    match std::env::var_os("PARTITA_PYTHON") {
-        Some(p) => Some(PathBuf::from(p)),
-        None if std::env::var_os("CI").is_some() => {
-            panic!("PARTITA_PYTHON is not set under CI: run the tests through scripts/check")
-        }
-        None => {
-            eprintln!("SKIP numpy cross-check: PARTITA_PYTHON is not set (scripts/check sets it up)");
-            None
-        }
-    }
+    partita_testkit::reference_python("numpy.convolve cross-check of the engine")
 }
 
 fn write_f32(path: &Path, v: &[f32]) {

@@ -14,16 +14,7 @@ use partita_io::{read_wav, write_wav, Dither, SampleFormat};
 use partita_testkit::ErrorBound;
 
 fn python() -> Option<PathBuf> {
-    match std::env::var_os("PARTITA_PYTHON") {
-        Some(p) => Some(PathBuf::from(p)),
-        None if std::env::var_os("CI").is_some() => {
-            panic!("PARTITA_PYTHON is not set under CI: run the tests through scripts/check")
-        }
-        None => {
-            eprintln!("SKIP render vs numpy.convolve: PARTITA_PYTHON is not set (scripts/check sets it up)");
-            None
-        }
-    }
+    partita_testkit::reference_python("render vs numpy.convolve")
 }
 
 fn read_f64(path: &Path) -> Vec<f64> {

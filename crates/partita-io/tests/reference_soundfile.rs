@@ -13,7 +13,6 @@
 
 mod support;
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -21,20 +20,7 @@ use partita_core::synth::Noise;
 use partita_io::{read_wav, read_wav_info, write_wav, Dither, Encoding, SampleFormat};
 
 fn python() -> Option<PathBuf> {
-    match std::env::var_os("PARTITA_PYTHON") {
-        Some(p) => Some(PathBuf::from(p)),
-        None if std::env::var_os("CI").is_some() => {
-            panic!("PARTITA_PYTHON is not set under CI: run the tests through scripts/check")
-        }
-        None => {
-            // Written to the stderr handle, not with eprintln!, so the test harness does not capture it.
-            let _ = std::io::stderr().write_all(
-                b"\n*** SKIP soundfile/scipy WAV cross-check: PARTITA_PYTHON is not set (scripts/check sets it up; \
-                  or point it at a Python with soundfile 0.14, scipy 1.17, numpy 2.4) ***\n\n",
-            );
-            None
-        }
-    }
+    partita_testkit::reference_python("soundfile/scipy WAV cross-check")
 }
 
 fn script() -> PathBuf {

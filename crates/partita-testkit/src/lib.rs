@@ -130,3 +130,27 @@ impl ErrorBound {
         );
     }
 }
+
+/// The Python interpreter with the pinned reference libraries, from `PARTITA_PYTHON` (which
+/// `scripts/check` sets to its venv at `target/py`). Without it, prints a loud SKIP line naming `what`
+/// straight to stderr (so the harness does not capture it) and returns `None`; under `CI` it panics
+/// instead, so a reference check can never be skipped silently in CI.
+///
+/// # Panics
+/// When `PARTITA_PYTHON` is unset and `CI` is set.
+pub fn reference_python(what: &str) -> Option<std::path::PathBuf> {
+    use std::io::Write;
+    match std::env::var_os("PARTITA_PYTHON") {
+        Some(p) => Some(std::path::PathBuf::from(p)),
+        None if std::env::var_os("CI").is_some() => {
+            panic!("PARTITA_PYTHON is not set under CI: run the tests through scripts/check ({what})")
+        }
+        None => {
+            let _ = writeln!(
+                std::io::stderr(),
+                "\n*** SKIP {what}: PARTITA_PYTHON is not set (scripts/check sets it up) ***\n"
+            );
+            None
+        }
+    }
+}
