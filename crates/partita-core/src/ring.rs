@@ -120,4 +120,3 @@ mod tests {
         assert_eq!(two, [5.0, 6.0]);
     }
 }
-
