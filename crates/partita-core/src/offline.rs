@@ -38,15 +38,16 @@ use crate::plan::{Plan, Schedule};
 use crate::planner::Planner;
 use crate::routing::Routing;
 
-/// Largest engine block [`offline_plan`] uses. On the 2-core AMD EPYC development VM, rendering 20 s of
-/// stereo noise through stereo IRs single-threaded (optimal plans, flop model) took, at blocks 4096 /
-/// 8192 / 16384 / 32768 / 65536: see `BENCHMARKS.md` ("Choosing the offline block") for the table. Blocks
-/// from 16384 up were within a few percent of each other for the 2 s and 10 s IRs, and the cost rises
-/// again past 32768 as the FFT buffers leave the cache, so 16384 is the cap.
-pub const OFFLINE_MAX_BLOCK_FRAMES: usize = 1 << 14;
+/// Largest engine block [`offline_plan`] uses. Measured on the 2-core AMD EPYC development VM (60 s of
+/// stereo noise through stereo decaying-noise IRs, one thread, uniform plans, median of 5 interleaved
+/// runs, seconds): 0.5 s IR: 4096 0.063, 8192 0.060, 16384 0.060, 32768 0.065; 2 s IR: 8192 0.082,
+/// 16384 0.071, 32768 0.070, 65536 0.082; 10 s IR: 16384 0.223, 32768 0.180, 65536 0.154, 131072 0.145,
+/// 262144 0.157. The best block holds the IR in about four partitions; beyond 131072 the FFTs leave the
+/// cache and the cost rises again. `cargo bench --bench offline` repeats a block sweep (BENCHMARKS.md).
+pub const OFFLINE_MAX_BLOCK_FRAMES: usize = 1 << 17;
 
 /// Smallest engine block [`offline_plan`] uses: below it the per-block overhead dominates.
-pub const OFFLINE_MIN_BLOCK_FRAMES: usize = 256;
+pub const OFFLINE_MIN_BLOCK_FRAMES: usize = 1024;
 
 /// Largest level the offline planner may open (the optimal mode's `max_level_frames`).
 pub const OFFLINE_MAX_LEVEL_FRAMES: usize = 1 << 17;
@@ -117,12 +118,14 @@ impl From<PlanError> for RenderError {
     }
 }
 
-/// The engine block [`offline_plan`] picks for an IR of `ir_frames` taps: the power of two at or above
-/// the IR length, between [`OFFLINE_MIN_BLOCK_FRAMES`] and [`OFFLINE_MAX_BLOCK_FRAMES`]. An IR that fits
-/// one block is a single FFT level (FFT size about twice the IR, the classic overlap-save choice); longer
-/// IRs get the cap and larger levels behind it.
+/// The engine block [`offline_plan`] picks for an IR of `ir_frames` taps: the power of two at or above a
+/// quarter of the IR, between [`OFFLINE_MIN_BLOCK_FRAMES`] and [`OFFLINE_MAX_BLOCK_FRAMES`], so the IR
+/// fits in about four partitions. Offline, latency costs nothing, and the multiply-accumulate over a
+/// long frequency-domain delay line streams every partition from memory once per block, so fewer, larger
+/// partitions win until the FFTs themselves leave the cache (measurements at
+/// [`OFFLINE_MAX_BLOCK_FRAMES`]).
 pub fn offline_block_frames(ir_frames: usize) -> usize {
-    ir_frames.next_power_of_two().clamp(OFFLINE_MIN_BLOCK_FRAMES, OFFLINE_MAX_BLOCK_FRAMES)
+    ir_frames.div_ceil(4).next_power_of_two().clamp(OFFLINE_MIN_BLOCK_FRAMES, OFFLINE_MAX_BLOCK_FRAMES)
 }
 
 /// The planner [`offline_plan`] uses: optimal layout, block [`offline_block_frames`], synchronous levels,
@@ -290,28 +293,40 @@ fn render_segment<X: AsRef<[f32]>>(
     let mut at = 0;
     while at < total {
         let n = host.min(total - at);
-        // Input frames [at, at + n) of the segment: signal, then silence.
-        for (buf, x) in in_buf.iter_mut().zip(inputs) {
-            let have = seg_frames.saturating_sub(at).min(n);
-            let from = range.start + at.min(seg_frames);
-            buf[..have].copy_from_slice(&x.as_ref()[from..from + have]);
-            buf[have..n].fill(0.0);
-        }
-        let ins: Vec<&[f32]> = in_buf.iter().map(|b| &b[..n]).collect();
-        let mut outs: Vec<&mut [f32]> = out_buf.iter_mut().map(|b| &mut b[..n]).collect();
-        engine.process(&ins, &mut outs).expect("buffer counts and sizes match the engine by construction");
-        // Engine output frame m is convolution frame m - latency: frames [lo, hi) of the convolution.
-        let skip = latency.saturating_sub(at).min(n);
-        if skip < n {
-            let (lo, hi) = (at + skip - latency, at + n - latency);
-            // [lo, split) lands in `own`, [split, hi) in the tail (then split >= own_frames).
-            let split = own_frames.clamp(lo, hi);
-            for ((o, t), b) in own.iter_mut().zip(tail.iter_mut()).zip(&out_buf) {
-                if split > lo {
-                    o[lo..split].copy_from_slice(&b[skip..skip + split - lo]);
-                }
-                if hi > split {
-                    t[split - own_frames..hi - own_frames].copy_from_slice(&b[skip + split - lo..n]);
+        // Input frames [at, at + n) of the segment: the caller's signal itself while it lasts, then a
+        // buffer with its end and silence.
+        let ins: Vec<&[f32]> = if at + n <= seg_frames {
+            inputs.iter().map(|x| &x.as_ref()[range.start + at..range.start + at + n]).collect()
+        } else {
+            for (buf, x) in in_buf.iter_mut().zip(inputs) {
+                let have = seg_frames.saturating_sub(at).min(n);
+                let from = range.start + at.min(seg_frames);
+                buf[..have].copy_from_slice(&x.as_ref()[from..from + have]);
+                buf[have..n].fill(0.0);
+            }
+            in_buf.iter().map(|b| &b[..n]).collect()
+        };
+        // Engine output frame m is convolution frame m - latency. A call whose output lies wholly in
+        // `own` writes there directly; others go through a buffer.
+        if at >= latency && at - latency + n <= own_frames {
+            let lo = at - latency;
+            let mut outs: Vec<&mut [f32]> = own.iter_mut().map(|o| &mut o[lo..lo + n]).collect();
+            engine.process(&ins, &mut outs).expect("buffer counts and sizes match the engine by construction");
+        } else {
+            let mut outs: Vec<&mut [f32]> = out_buf.iter_mut().map(|b| &mut b[..n]).collect();
+            engine.process(&ins, &mut outs).expect("buffer counts and sizes match the engine by construction");
+            let skip = latency.saturating_sub(at).min(n);
+            if skip < n {
+                let (lo, hi) = (at + skip - latency, at + n - latency);
+                // [lo, split) lands in `own`, [split, hi) in the tail (then split >= own_frames).
+                let split = own_frames.clamp(lo, hi);
+                for ((o, t), b) in own.iter_mut().zip(tail.iter_mut()).zip(&out_buf) {
+                    if split > lo {
+                        o[lo..split].copy_from_slice(&b[skip..skip + split - lo]);
+                    }
+                    if hi > split {
+                        t[split - own_frames..hi - own_frames].copy_from_slice(&b[skip + split - lo..n]);
+                    }
                 }
             }
         }

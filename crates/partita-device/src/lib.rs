@@ -1,1 +1,86 @@
-//! Live audio through a Partita engine (in progress).
+//! # partita-device
+//!
+//! Live audio through a Partita [`Engine`](partita_core::Engine) with cpal: an input stream and an
+//! output stream (cpal has no duplex stream) bridged by a `ringbuf` SPSC queue, the engine run in one
+//! of the two callbacks, a [safety stage](safety) last in the chain, and run-time counters.
+//!
+//! - [`LiveDevices::open`] picks the host (ALSA; JACK with the `jack` feature), the devices (by
+//!   default, index or name), a configuration (channels, rate, PCM format, a fixed period where the
+//!   host allows); [`LiveDevices::start`] builds the [`Bridge`] and starts both streams.
+//! - The per-callback work is plain struct methods ([`CaptureSide::capture`],
+//!   [`PlaybackSide::render`]) that never allocate, lock or wait, so tests drive them without a device.
+//! - Any callback frame count works (split into chunks of the engine's `max_host_frames`); every PCM
+//!   format converts to and from f32 ([`convert`]); device channels map to engine channels
+//!   ([`ChannelMap`]); clock drift between separate devices is corrected by slipping or repeating a
+//!   frame ([`drift`]).
+//! - Faults: error callbacks only set atomics. Host-reported xruns, our own overruns (ring underruns
+//!   and overflows, callbacks slower than their period), drift corrections, late worker results,
+//!   non-finite samples and mutes are counted separately ([`Stats`]); a lost device or a stopped
+//!   server becomes a [`Fault`], and a watchdog catches streams that stop calling back.
+//!
+//! The whole chain runs offline, as the tests do:
+//!
+//! ```
+//! use partita_core::{Engine, ImpulseResponse, Plan, Routing};
+//! use partita_device::{Bridge, BridgeOptions, CallbackTime, SafetyOptions};
+//!
+//! let ir = ImpulseResponse::new(vec![vec![0.5, 0.25]], 48_000)?;
+//! let engine = Engine::new(&Plan::uniform(64, ir.frames())?, &ir, Routing::Mono, 256)?;
+//! let mut options = BridgeOptions::new(48_000, 1, 1);
+//! options.safety = SafetyOptions { fade_in_ms: 0.0, ..SafetyOptions::default() };
+//! let Bridge { mut capture, mut playback, handle } = Bridge::new(engine, &options)?;
+//!
+//! let mut input = vec![0.0f32; 64];
+//! input[0] = 1.0;
+//! let mut output = vec![0.0f32; 64];
+//! let mut heard = Vec::new();
+//! for k in 0..4u64 {
+//!     let t = CallbackTime { now_ns: k * 1_333_333, device_delay_ns: 0 };
+//!     capture.capture(&input, t);
+//!     playback.render(&mut output, t);
+//!     heard.extend_from_slice(&output);
+//!     input[0] = 0.0;
+//! }
+//! // The impulse comes out after the engine's block latency of 64 frames.
+//! assert_eq!((heard[64], heard[65]), (0.5, 0.25));
+//! assert_eq!(handle.stats().overruns(), 0);
+//! # Ok::<(), Box<dyn std::error::Error>>(())
+//! ```
+//!
+//! ## Where the engine runs
+//! [`EngineSide::Capture`] (default) runs the engine in the input callback and rings finished output
+//! frames, so the output callback only copies and any jitter of the engine's time is absorbed by the
+//! ring rather than by the output device's buffer. On a JACK server the two callbacks run in one cycle
+//! and the choice makes no measurable difference.
+#![warn(missing_docs)]
+#![deny(unsafe_op_in_unsafe_fn)]
+#![forbid(unsafe_code)]
+
+mod bridge;
+mod channels;
+pub mod convert;
+pub mod drift;
+mod error;
+mod host;
+pub mod safety;
+mod stats;
+
+pub use bridge::{
+    Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, Mix, PlaybackSide, MAX_ENGINE_CHANNELS,
+};
+pub use channels::ChannelMap;
+pub use drift::{Correction, DriftOptions, DriftTracker};
+pub use error::{DeviceError, Direction};
+pub use host::{
+    host_by_name, host_names, jack_client_names, list_devices, ConfigInfo, DeviceInfo, DeviceOptions, DeviceSelector,
+    LiveDevices, LiveInfo, LiveStream, SideInfo, StreamOptions,
+};
+pub use safety::{Ceiling, MuteReason, SafetyOptions, SafetyStage};
+pub use stats::{Fault, Peaks, Stats};
+
+/// The caution `partita monitor` prints on start.
+pub const CAUTION: &str = "\
+CAUTION: live convolution can be loud. Start with the volume down and raise it slowly; prefer \
+headphones. With an open microphone and speakers in one room, feedback can build within a second: \
+the output mutes itself on sustained full-scale output or non-finite samples, but protect your ears \
+and speakers first.";

@@ -1,0 +1,751 @@
+//! The per-callback work of a live stream, as plain structs testable without a device.
+//!
+//! cpal has no duplex stream, so a live stream is two: the capture side ([`CaptureSide`], run by the
+//! input stream's callback) and the playback side ([`PlaybackSide`], the output stream's), joined by a
+//! `ringbuf` single-producer single-consumer queue of interleaved f32 frames. The engine, the wet/dry
+//! mix and the [safety stage](crate::safety) run on one side ([`EngineSide`]); the ring carries engine
+//! inputs (engine on the playback side) or finished output frames (engine on the capture side).
+//!
+//! Per callback, with no allocation, lock, I/O or wait: convert the device format to f32, map device
+//! channels to engine channels, replace non-finite input by 0 (counted), push or pop whole frames,
+//! prime the ring, correct drift ([`crate::drift`]), run the engine in chunks of at most its
+//! `max_host_frames`, mix, apply the safety stage, meter, convert back, and time the callback (wall
+//! clock against its period for the overrun count, thread CPU clock for the load).
+
+use std::sync::atomic::Ordering::Relaxed;
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+use partita_core::{Engine, Monitor};
+use ringbuf::traits::{Consumer, Observer, Producer, Split};
+use ringbuf::{HeapCons, HeapProd, HeapRb};
+
+use crate::channels::ChannelMap;
+use crate::convert::{with_samples, DeviceSample};
+use crate::drift::{Correction, DriftOptions, DriftTracker};
+use crate::error::DeviceError;
+use crate::safety::{SafetyOptions, SafetyStage};
+use crate::stats::{Fault, Peaks, Shared, Stats};
+
+/// The most engine inputs or outputs a bridge handles.
+pub const MAX_ENGINE_CHANNELS: usize = 32;
+
+/// Which callback runs the engine.
+///
+/// Measured on a JACK dummy server (both callbacks then run one after the other in the server's cycle)
+/// the two are equivalent; with separate devices the capture side is the better place: the output
+/// callback then only copies, so jitter in the engine's time is absorbed by the ring instead of
+/// delaying the device's output buffer. See the crate docs for the figures.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum EngineSide {
+    /// In the input stream's callback; the ring carries finished output frames (default).
+    #[default]
+    Capture,
+    /// In the output stream's callback; the ring carries engine input frames.
+    Playback,
+}
+
+/// Wet and dry gains (linear). The dry signal is delayed by the engine's latency so that the mix is
+/// the convolution with `wet * h + dry * delta`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Mix {
+    /// Gain of the convolved signal (default 1).
+    pub wet: f32,
+    /// Gain of the unprocessed input (default 0).
+    pub dry: f32,
+}
+
+impl Default for Mix {
+    fn default() -> Self {
+        Self { wet: 1.0, dry: 0.0 }
+    }
+}
+
+/// How a [`Bridge`] is put together.
+#[derive(Debug, Clone)]
+pub struct BridgeOptions {
+    /// The stream's sample rate (the engine's IR must be at this rate).
+    pub sample_rate_hz: u32,
+    /// Channels of the input stream (interleaved in each capture callback).
+    pub device_inputs: usize,
+    /// Channels of the output stream.
+    pub device_outputs: usize,
+    /// Device channels to engine channels; [`ChannelMap::default_for`] when `None`.
+    pub map: Option<ChannelMap>,
+    /// Where the engine runs.
+    pub side: EngineSide,
+    /// Frames kept in the ring beyond the larger of the two callback sizes before playback starts: 0
+    /// only when the input callback always runs just before the output callback on one clock; a period
+    /// when their order may change (JACK); a period plus the drift controller's slack for separate
+    /// devices.
+    pub margin_frames: usize,
+    /// Ring capacity in frames (at least 4 x (largest expected callback + margin)).
+    pub ring_frames: usize,
+    /// The safety stage.
+    pub safety: SafetyOptions,
+    /// Initial wet/dry mix.
+    pub mix: Mix,
+    /// Drift correction settings.
+    pub drift: DriftOptions,
+}
+
+impl BridgeOptions {
+    /// Defaults for a stream at `sample_rate_hz` with the given device channel counts: engine on the
+    /// capture side, no margin, a ring of 16384 frames, default safety and mix.
+    pub fn new(sample_rate_hz: u32, device_inputs: usize, device_outputs: usize) -> Self {
+        Self {
+            sample_rate_hz,
+            device_inputs,
+            device_outputs,
+            map: None,
+            side: EngineSide::default(),
+            margin_frames: 0,
+            ring_frames: 16_384,
+            safety: SafetyOptions::default(),
+            mix: Mix::default(),
+            drift: DriftOptions::default(),
+        }
+    }
+}
+
+/// The time of a callback: now on the bridge's clock, and the device delay from cpal's timestamps
+/// (capture side: callback minus capture instant; playback side: playback minus callback instant).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct CallbackTime {
+    /// Nanoseconds on a clock both sides share: [`BridgeHandle::now_ns`], or the host's when input
+    /// and output run on one clock (JACK).
+    pub now_ns: u64,
+    /// Device-side delay, ns.
+    pub device_delay_ns: u64,
+}
+
+/// A fixed delay line (the dry path's alignment with the engine's latency).
+#[derive(Debug)]
+struct DelayLine {
+    buf: Vec<f32>,
+    pos: usize,
+}
+
+impl DelayLine {
+    fn new(frames: usize) -> Self {
+        Self { buf: vec![0.0; frames], pos: 0 }
+    }
+
+    fn run(&mut self, input: &[f32], output: &mut [f32]) {
+        if self.buf.is_empty() {
+            output.copy_from_slice(input);
+            return;
+        }
+        for (x, y) in input.iter().zip(output.iter_mut()) {
+            *y = self.buf[self.pos];
+            self.buf[self.pos] = *x;
+            self.pos += 1;
+            if self.pos == self.buf.len() {
+                self.pos = 0;
+            }
+        }
+    }
+
+    fn clear(&mut self) {
+        self.buf.fill(0.0);
+    }
+}
+
+/// Engine, mix and safety stage: the processing one side runs.
+#[derive(Debug)]
+struct Stage {
+    engine: Engine,
+    outs: Vec<Vec<f32>>,
+    dry_src: Vec<usize>,
+    dry_lines: Vec<DelayLine>,
+    dry_buf: Vec<Vec<f32>>,
+    wet: f32,
+    dry: f32,
+    /// Largest gain change per frame (a 20 ms ramp from 0 to 1).
+    ramp_per_frame: f32,
+    safety: SafetyStage,
+}
+
+impl Stage {
+    fn new(engine: Engine, chunk: usize, options: &BridgeOptions) -> Self {
+        let m = engine.inputs();
+        let n = engine.outputs();
+        let latency = engine.latency_frames();
+        Self {
+            outs: vec![vec![0.0; chunk]; n],
+            dry_src: (0..n).map(|o| o.min(m - 1)).collect(),
+            dry_lines: (0..m).map(|_| DelayLine::new(latency)).collect(),
+            dry_buf: vec![vec![0.0; chunk]; m],
+            wet: options.mix.wet,
+            dry: options.mix.dry,
+            ramp_per_frame: 1.0 / (0.02 * options.sample_rate_hz as f32),
+            safety: SafetyStage::new(&options.safety, options.sample_rate_hz),
+            engine,
+        }
+    }
+
+    /// Runs `len` frames of `ins` (planar, one per engine input) into `self.outs`.
+    fn run(&mut self, ins: &[Vec<f32>], len: usize, shared: &Shared) {
+        let m = ins.len();
+        let n = self.outs.len();
+        if shared.unmute.swap(false, Relaxed) {
+            self.engine.reset();
+            for d in &mut self.dry_lines {
+                d.clear();
+            }
+            self.safety.unmute();
+            shared.mute_reason.store(0, Relaxed);
+        }
+        {
+            let mut in_refs: [&[f32]; MAX_ENGINE_CHANNELS] = [&[]; MAX_ENGINE_CHANNELS];
+            for (r, b) in in_refs.iter_mut().zip(ins) {
+                *r = &b[..len];
+            }
+            let mut out_refs: [&mut [f32]; MAX_ENGINE_CHANNELS] = Default::default();
+            for (r, b) in out_refs.iter_mut().zip(self.outs.iter_mut()) {
+                *r = &mut b[..len];
+            }
+            // Cannot fail: channel counts and lengths are fixed at construction and len <= chunk <=
+            // max_host_frames. On error the engine zeroes the outputs, which is safe.
+            let _ = self.engine.process(&in_refs[..m], &mut out_refs[..n]);
+        }
+        for (line, (x, y)) in self.dry_lines.iter_mut().zip(ins.iter().zip(self.dry_buf.iter_mut())) {
+            line.run(&x[..len], &mut y[..len]);
+        }
+        let (wet_target, dry_target) = if shared.bypass.load(Relaxed) {
+            (0.0, 1.0)
+        } else {
+            (f32::from_bits(shared.wet_bits.load(Relaxed)), f32::from_bits(shared.dry_bits.load(Relaxed)))
+        };
+        let (w0, d0) = (self.wet, self.dry);
+        let step =
+            |from: f32, to: f32| (to - from).clamp(-self.ramp_per_frame * len as f32, self.ramp_per_frame * len as f32);
+        let (w1, d1) = (w0 + step(w0, wet_target), d0 + step(d0, dry_target));
+        let unity = w0 == 1.0 && w1 == 1.0 && d0 == 0.0 && d1 == 0.0;
+        if !unity {
+            let inv = 1.0 / len as f32;
+            for (o, y) in self.outs.iter_mut().enumerate() {
+                let dry = &self.dry_buf[self.dry_src[o]];
+                for (i, v) in y[..len].iter_mut().enumerate() {
+                    let t = (i + 1) as f32 * inv;
+                    *v = (w0 + (w1 - w0) * t) * *v + (d0 + (d1 - d0) * t) * dry[i];
+                }
+            }
+        }
+        self.wet = w1;
+        self.dry = d1;
+        if shared.inject_nonfinite.swap(false, Relaxed) {
+            self.outs[0][len / 2] = f32::NAN;
+        }
+        let report = self.safety.process(&mut self.outs, len);
+        if report.nonfinite > 0 {
+            shared.nonfinite_outputs.fetch_add(report.nonfinite, Relaxed);
+        }
+        if let Some(reason) = report.muted {
+            shared.mutes.fetch_add(1, Relaxed);
+            shared.mute_reason.store(reason.code(), Relaxed);
+        }
+        let mut peak = 0.0f32;
+        for y in &self.outs {
+            for v in &y[..len] {
+                peak = peak.max(v.abs());
+            }
+        }
+        Shared::raise_peak(&shared.out_peak, peak);
+    }
+}
+
+/// Measures one callback: thread CPU time into the load, wall time against the period for the
+/// overrun count and the worst-callback figure.
+struct CallbackTimer {
+    wall: Instant,
+    cpu_s: f64,
+}
+
+impl CallbackTimer {
+    #[inline]
+    fn start() -> Self {
+        Self { wall: Instant::now(), cpu_s: partita_core::thread_cpu_seconds() }
+    }
+
+    #[inline]
+    fn finish(self, shared: &Shared, frames: usize) {
+        let cpu = partita_core::thread_cpu_seconds() - self.cpu_s;
+        let wall = self.wall.elapsed().as_secs_f64();
+        let period = frames as f64 / f64::from(shared.rate_hz);
+        shared.cpu_ns.fetch_add((cpu.max(0.0) * 1e9) as u64, Relaxed);
+        if period > 0.0 {
+            shared.max_callback_ppm.fetch_max((wall / period * 1e6) as u64, Relaxed);
+            if wall > period {
+                shared.late_callbacks.fetch_add(1, Relaxed);
+            }
+        }
+    }
+}
+
+/// Spins for the test stall hook (never set outside tests).
+fn test_stall(shared: &Shared) {
+    let ns = shared.stall_ns.swap(0, Relaxed);
+    if ns > 0 {
+        let until = Instant::now() + Duration::from_nanos(ns);
+        while Instant::now() < until {
+            std::hint::spin_loop();
+        }
+    }
+}
+
+/// The input stream's per-callback work: format conversion, channel mapping, the engine (on
+/// [`EngineSide::Capture`]), the ring push. See the crate docs.
+pub struct CaptureSide {
+    shared: Arc<Shared>,
+    prod: HeapProd<f32>,
+    width: usize,
+    device_channels: usize,
+    map: Vec<usize>,
+    planar: Vec<Vec<f32>>,
+    frames_buf: Vec<f32>,
+    stage: Option<Box<Stage>>,
+    chunk: usize,
+}
+
+/// The output stream's per-callback work: the ring pop with priming and drift correction, the engine
+/// (on [`EngineSide::Playback`]), channel mapping and conversion. See the crate docs.
+pub struct PlaybackSide {
+    shared: Arc<Shared>,
+    cons: HeapCons<f32>,
+    width: usize,
+    device_channels: usize,
+    map: Vec<Option<usize>>,
+    planar: Vec<Vec<f32>>,
+    frames_buf: Vec<f32>,
+    last_frame: Vec<f32>,
+    stage: Option<Box<Stage>>,
+    chunk: usize,
+    margin: usize,
+    drift: DriftTracker,
+    primed: bool,
+    started: bool,
+    last_frames: usize,
+    last_input_frames: usize,
+    disturbed: u8,
+}
+
+impl std::fmt::Debug for CaptureSide {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("CaptureSide")
+            .field("width", &self.width)
+            .field("device_channels", &self.device_channels)
+            .field("map", &self.map)
+            .field("engine", &self.stage.is_some())
+            .field("chunk", &self.chunk)
+            .finish_non_exhaustive()
+    }
+}
+
+impl std::fmt::Debug for PlaybackSide {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("PlaybackSide")
+            .field("width", &self.width)
+            .field("device_channels", &self.device_channels)
+            .field("map", &self.map)
+            .field("engine", &self.stage.is_some())
+            .field("primed", &self.primed)
+            .field("drift", &self.drift)
+            .finish_non_exhaustive()
+    }
+}
+
+/// The control side of a bridge: counters, meters, mix and mute controls. Cheap to clone; every method
+/// is wait-free and may be called from any thread.
+#[derive(Debug, Clone)]
+pub struct BridgeHandle {
+    shared: Arc<Shared>,
+    engine: Monitor,
+    origin: Instant,
+}
+
+/// A bridge, split into its two callback sides and the control handle.
+#[derive(Debug)]
+pub struct Bridge {
+    /// For the input stream's callback.
+    pub capture: CaptureSide,
+    /// For the output stream's callback.
+    pub playback: PlaybackSide,
+    /// For the control thread.
+    pub handle: BridgeHandle,
+}
+
+impl Bridge {
+    /// Builds a bridge around `engine`. Allocates every buffer: the ring, the scratch for chunks of
+    /// `engine.max_host_frames()` frames, the dry delay lines.
+    ///
+    /// # Errors
+    /// [`DeviceError::TooManyChannels`] beyond [`MAX_ENGINE_CHANNELS`], [`DeviceError::ChannelMap`] when
+    /// the map does not fit the devices or the engine.
+    pub fn new(engine: Engine, options: &BridgeOptions) -> Result<Self, DeviceError> {
+        let m = engine.inputs();
+        let n = engine.outputs();
+        for channels in [m, n] {
+            if channels > MAX_ENGINE_CHANNELS {
+                return Err(DeviceError::TooManyChannels { channels, max: MAX_ENGINE_CHANNELS });
+            }
+        }
+        if options.device_inputs == 0 || options.device_outputs == 0 {
+            return Err(DeviceError::ChannelMap("the devices need at least one channel each way".into()));
+        }
+        let map = options
+            .map
+            .clone()
+            .unwrap_or_else(|| ChannelMap::default_for(options.device_inputs, options.device_outputs, m, n));
+        if map.inputs.len() != m
+            || map.device_inputs_needed() > options.device_inputs
+            || map.outputs.len() != options.device_outputs
+            || map.outputs.iter().flatten().any(|&o| o >= n)
+        {
+            return Err(DeviceError::ChannelMap(format!(
+                "the map {map:?} does not fit {} input / {} output device channels and an engine of {m} x {n}",
+                options.device_inputs, options.device_outputs
+            )));
+        }
+        let chunk = engine.max_host_frames().min(8192);
+        let width = match options.side {
+            EngineSide::Capture => n,
+            EngineSide::Playback => m,
+        };
+        let shared =
+            Arc::new(Shared::new(options.sample_rate_hz, engine.latency_frames(), options.mix.wet, options.mix.dry));
+        let handle = BridgeHandle { shared: Arc::clone(&shared), engine: engine.monitor(), origin: Instant::now() };
+        let (prod, cons) = HeapRb::<f32>::new(options.ring_frames.max(chunk) * width).split();
+        let stage = Box::new(Stage::new(engine, chunk, options));
+        let (capture_stage, playback_stage) = match options.side {
+            EngineSide::Capture => (Some(stage), None),
+            EngineSide::Playback => (None, Some(stage)),
+        };
+        let capture = CaptureSide {
+            shared: Arc::clone(&shared),
+            prod,
+            width,
+            device_channels: options.device_inputs,
+            map: map.inputs.clone(),
+            planar: vec![vec![0.0; chunk]; m],
+            frames_buf: vec![0.0; chunk * width],
+            stage: capture_stage,
+            chunk,
+        };
+        let playback = PlaybackSide {
+            shared,
+            cons,
+            width,
+            device_channels: options.device_outputs,
+            map: map.outputs.clone(),
+            planar: vec![vec![0.0; chunk]; if playback_stage.is_some() { m } else { 0 }],
+            frames_buf: vec![0.0; chunk * width],
+            last_frame: vec![0.0; width],
+            stage: playback_stage,
+            chunk,
+            margin: options.margin_frames,
+            drift: DriftTracker::new(options.sample_rate_hz, options.drift),
+            primed: false,
+            started: false,
+            last_frames: 0,
+            last_input_frames: 0,
+            disturbed: 0,
+        };
+        Ok(Self { capture, playback, handle })
+    }
+}
+
+impl CaptureSide {
+    /// One input callback: `data` holds interleaved frames of the device's channels. Never allocates.
+    pub fn capture<T: DeviceSample>(&mut self, data: &[T], time: CallbackTime) {
+        let timer = CallbackTimer::start();
+        let shared = &*self.shared;
+        let c = self.device_channels;
+        let frames = data.len() / c;
+        shared.callbacks_in.fetch_add(1, Relaxed);
+        shared.in_period.store(frames as u32, Relaxed);
+        shared.capture_delay_ns.store(time.device_delay_ns, Relaxed);
+        let mut done = 0;
+        let mut bad = 0u64;
+        let mut peak = 0.0f32;
+        let mut overflowed = false;
+        while done < frames {
+            let len = (frames - done).min(self.chunk);
+            let src = &data[done * c..(done + len) * c];
+            for (plane, &ch) in self.planar.iter_mut().zip(&self.map) {
+                for (i, y) in plane[..len].iter_mut().enumerate() {
+                    let v = src[i * c + ch].to_f32();
+                    *y = if v.is_finite() {
+                        peak = peak.max(v.abs());
+                        v
+                    } else {
+                        bad += 1;
+                        0.0
+                    };
+                }
+            }
+            let w = self.width;
+            match &mut self.stage {
+                Some(stage) => {
+                    stage.run(&self.planar, len, shared);
+                    interleave(&stage.outs, &mut self.frames_buf[..len * w], len);
+                }
+                None => interleave(&self.planar, &mut self.frames_buf[..len * w], len),
+            }
+            let room = self.prod.vacant_len() / w;
+            let fit = len.min(room);
+            if fit < len {
+                overflowed = true;
+            }
+            self.prod.push_slice(&self.frames_buf[..fit * w]);
+            done += len;
+        }
+        if overflowed {
+            shared.ring_overflows.fetch_add(1, Relaxed);
+        }
+        if bad > 0 {
+            shared.nonfinite_inputs.fetch_add(bad, Relaxed);
+        }
+        Shared::raise_peak(&shared.in_peak, peak);
+        shared.store_last_input(time.now_ns, frames);
+        timer.finish(shared, frames);
+    }
+
+    /// [`capture`](Self::capture) for cpal's format-tagged buffer.
+    pub fn capture_data(&mut self, data: &cpal::Data, time: CallbackTime) {
+        with_samples!(data, as_slice, |s| self.capture(s, time));
+    }
+}
+
+fn interleave(planar: &[Vec<f32>], out: &mut [f32], len: usize) {
+    let w = planar.len();
+    for (c, plane) in planar.iter().enumerate() {
+        for i in 0..len {
+            out[i * w + c] = plane[i];
+        }
+    }
+}
+
+impl PlaybackSide {
+    /// One output callback: fills `data`, interleaved frames of the device's channels. Never allocates.
+    pub fn render<T: DeviceSample>(&mut self, data: &mut [T], time: CallbackTime) {
+        let timer = CallbackTimer::start();
+        test_stall(&self.shared);
+        let c = self.device_channels;
+        let frames = data.len() / c;
+        let shared = &*self.shared;
+        shared.callbacks_out.fetch_add(1, Relaxed);
+        shared.frames_out.fetch_add(frames as u64, Relaxed);
+        shared.out_period.store(frames as u32, Relaxed);
+        if frames == 0 {
+            return;
+        }
+        let w = self.width;
+        let (t_in, n_in) = shared.last_input();
+        if frames != self.last_frames || n_in != self.last_input_frames {
+            // A period changed (e.g. jack_bufsize): the level settles anew, and running dry now is the
+            // reconfiguration's doing, not an overrun.
+            self.last_frames = frames;
+            self.last_input_frames = n_in;
+            self.disturbed = 3;
+            self.drift.reset();
+        } else {
+            self.disturbed = self.disturbed.saturating_sub(1);
+        }
+        let fill = self.cons.occupied_len() / w;
+        let target = n_in.max(frames) + self.margin;
+        if !self.primed {
+            if n_in > 0 && fill >= target {
+                self.primed = true;
+                if self.started {
+                    shared.reprimes.fetch_add(1, Relaxed);
+                }
+                self.started = true;
+                self.drift.reset();
+            } else {
+                fill_silence(data);
+                timer.finish(shared, frames);
+                return;
+            }
+        }
+        if fill < frames {
+            // Ran dry: play silence and build the level up again rather than play a partial buffer.
+            if self.disturbed == 0 {
+                shared.ring_underruns.fetch_add(1, Relaxed);
+            }
+            self.primed = false;
+            fill_silence(data);
+            timer.finish(shared, frames);
+            return;
+        }
+        // The ring's level independent of the two callbacks' phase: add what the input has gathered
+        // since its last callback.
+        let rate = f64::from(shared.rate_hz);
+        let since_in_ns = time.now_ns.saturating_sub(t_in);
+        let gathered = (since_in_ns as f64 * 1e-9 * rate).min(n_in as f64);
+        let mut correction = self.drift.observe(fill as f64 + gathered, frames);
+        if let (Correction::None, Some(reference)) = (correction, self.drift.reference()) {
+            // Far more buffered than needed (the period shrank): drop the excess at once.
+            let excess = reference - (target + 2 * n_in.max(frames)) as f64;
+            if excess >= 1.0 && fill >= frames + excess as usize {
+                self.cons.skip(excess as usize * w);
+                shared.resyncs.fetch_add(1, Relaxed);
+                self.drift.reset();
+            }
+        }
+        let fill = self.cons.occupied_len() / w;
+        if correction == Correction::Slip && fill < frames + 1 {
+            correction = Correction::None;
+        }
+        // Latency of the first frame played now: playback delay + time since the input callback +
+        // capture delay + frames queued ahead of that callback's + the engine's latency.
+        let queued = fill as i64 - n_in as i64 - i64::from(correction == Correction::Slip);
+        let latency_ns = time.device_delay_ns as f64
+            + since_in_ns as f64
+            + shared.capture_delay_ns.load(Relaxed) as f64
+            + (queued as f64 + shared.engine_latency_frames as f64) * 1e9 / rate;
+        shared.record_latency(latency_ns.max(0.0) as u64);
+
+        match correction {
+            Correction::Slip => {
+                self.cons.skip(w);
+                shared.drift_slips.fetch_add(1, Relaxed);
+            }
+            Correction::Repeat => {
+                shared.drift_repeats.fetch_add(1, Relaxed);
+            }
+            Correction::None => {}
+        }
+        self.drift.applied(correction);
+
+        let mut done = 0;
+        let mut repeat = correction == Correction::Repeat;
+        while done < frames {
+            let len = (frames - done).min(self.chunk);
+            let buf = &mut self.frames_buf[..len * w];
+            let start = if repeat {
+                buf[..w].copy_from_slice(&self.last_frame);
+                repeat = false;
+                w
+            } else {
+                0
+            };
+            let got = self.cons.pop_slice(&mut buf[start..]);
+            buf[start + got..].fill(0.0);
+            self.last_frame.copy_from_slice(&buf[(len - 1) * w..]);
+            let out = &mut data[done * c..(done + len) * c];
+            match &mut self.stage {
+                Some(stage) => {
+                    for (k, plane) in self.planar.iter_mut().enumerate() {
+                        for i in 0..len {
+                            plane[i] = buf[i * w + k];
+                        }
+                    }
+                    stage.run(&self.planar, len, shared);
+                    write_device(out, c, &self.map, len, |o, i| stage.outs[o][i]);
+                }
+                None => {
+                    let buf = &self.frames_buf;
+                    let peak = buf[..len * w].iter().fold(0.0f32, |p, v| p.max(v.abs()));
+                    Shared::raise_peak(&shared.out_peak, peak);
+                    write_device(out, c, &self.map, len, |o, i| buf[i * w + o]);
+                }
+            }
+            done += len;
+        }
+        timer.finish(shared, frames);
+    }
+
+    /// [`render`](Self::render) for cpal's format-tagged buffer.
+    pub fn render_data(&mut self, data: &mut cpal::Data, time: CallbackTime) {
+        with_samples!(data, as_slice_mut, |s| self.render(s, time));
+    }
+}
+
+fn fill_silence<T: DeviceSample>(data: &mut [T]) {
+    let zero = T::from_f32(0.0);
+    data.fill(zero);
+}
+
+#[inline]
+fn write_device<T: DeviceSample>(
+    out: &mut [T],
+    channels: usize,
+    map: &[Option<usize>],
+    len: usize,
+    sample: impl Fn(usize, usize) -> f32,
+) {
+    for i in 0..len {
+        for (d, src) in map.iter().enumerate() {
+            out[i * channels + d] = T::from_f32(src.map_or(0.0, |o| sample(o, i)));
+        }
+    }
+}
+
+impl BridgeHandle {
+    /// Nanoseconds since the bridge was built: the clock [`CallbackTime::now_ns`] is read on.
+    #[inline]
+    pub fn now_ns(&self) -> u64 {
+        self.origin.elapsed().as_nanos() as u64
+    }
+
+    /// A snapshot of every counter.
+    pub fn stats(&self) -> Stats {
+        self.shared.snapshot(self.engine.late_results(), self.engine.worker_cpu_seconds())
+    }
+
+    /// Input and output peaks since the last call (for a meter).
+    pub fn take_peaks(&self) -> Peaks {
+        self.shared.take_peaks()
+    }
+
+    /// The fault an error callback reported, if any.
+    pub fn fault(&self) -> Option<Fault> {
+        self.shared.fault()
+    }
+
+    /// Records a fault found by the control side (e.g. the watchdog).
+    pub fn set_fault(&self, fault: Fault) {
+        self.shared.set_fault(fault);
+    }
+
+    /// What an error callback does: classify cpal's error into counters and the fault flag. Atomics
+    /// only, real-time safe.
+    #[inline]
+    pub fn note_error(&self, kind: cpal::ErrorKind, direction: crate::Direction) {
+        self.shared.note_error(kind, direction);
+    }
+
+    /// New wet/dry gains, ramped over 20 ms on the audio thread.
+    pub fn set_mix(&self, mix: Mix) {
+        self.shared.wet_bits.store(mix.wet.to_bits(), Relaxed);
+        self.shared.dry_bits.store(mix.dry.to_bits(), Relaxed);
+    }
+
+    /// Bypass: the dry signal only (ramped), or back to the mix.
+    pub fn set_bypass(&self, bypass: bool) {
+        self.shared.bypass.store(bypass, Relaxed);
+    }
+
+    /// Whether bypass is on.
+    pub fn bypass(&self) -> bool {
+        self.shared.bypass.load(Relaxed)
+    }
+
+    /// Ends a safety mute: the engine is reset and the output fades in again.
+    pub fn unmute(&self) {
+        self.shared.unmute.store(true, Relaxed);
+    }
+
+    /// Test hook: the next playback callback spins for `stall` before its work.
+    #[doc(hidden)]
+    pub fn stall_next_callback(&self, stall: Duration) {
+        self.shared.stall_ns.store(stall.as_nanos() as u64, Relaxed);
+    }
+
+    /// Test hook: the engine's next output gets a NaN before the safety stage.
+    #[doc(hidden)]
+    pub fn inject_nonfinite_output(&self) {
+        self.shared.inject_nonfinite.store(true, Relaxed);
+    }
+}

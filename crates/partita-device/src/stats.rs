@@ -1,0 +1,347 @@
+//! Run-time counters shared by the audio callbacks (atomics only) and what the control side reads.
+
+use std::sync::atomic::{
+    AtomicBool, AtomicU32, AtomicU64, AtomicU8, Ordering::Acquire, Ordering::Relaxed, Ordering::Release,
+};
+
+use crate::error::Direction;
+use crate::safety::MuteReason;
+
+/// Why a running stream stopped working. The error callbacks and the watchdog set it; the control side
+/// ends the stream with [`Fault`]'s message.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Fault {
+    /// The device went away, or the JACK server stopped (cpal's `DeviceNotAvailable`).
+    DeviceLost(Direction),
+    /// The host itself is gone (`HostUnavailable`).
+    HostLost(Direction),
+    /// The stream must be rebuilt, e.g. the server's sample rate changed (`StreamInvalidated`).
+    StreamInvalidated(Direction),
+    /// No callback for a second while the stream should be running.
+    Stalled(Direction),
+}
+
+impl Fault {
+    fn code(self) -> (u8, u8) {
+        let (c, d) = match self {
+            Self::DeviceLost(d) => (1, d),
+            Self::HostLost(d) => (2, d),
+            Self::StreamInvalidated(d) => (3, d),
+            Self::Stalled(d) => (4, d),
+        };
+        (c, if d == Direction::Input { 0 } else { 1 })
+    }
+
+    fn from_code(code: u8, dir: u8) -> Option<Self> {
+        let d = if dir == 0 { Direction::Input } else { Direction::Output };
+        match code {
+            1 => Some(Self::DeviceLost(d)),
+            2 => Some(Self::HostLost(d)),
+            3 => Some(Self::StreamInvalidated(d)),
+            4 => Some(Self::Stalled(d)),
+            _ => None,
+        }
+    }
+}
+
+impl std::fmt::Display for Fault {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Self::DeviceLost(d) => write!(
+                f,
+                "the {d} device is no longer available (unplugged, or the JACK server stopped); the stream was \
+                 ended"
+            ),
+            Self::HostLost(d) => write!(f, "the audio host went away ({d} stream); the stream was ended"),
+            Self::StreamInvalidated(d) => write!(
+                f,
+                "the {d} stream was invalidated by the host (e.g. the server's sample rate changed); restart \
+                 partita"
+            ),
+            Self::Stalled(d) => {
+                write!(f, "the {d} stream stopped calling back for over a second; the stream was ended")
+            }
+        }
+    }
+}
+
+/// A snapshot of a bridge's counters. Plain data, read off the audio thread.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct Stats {
+    /// Audio seconds played (output frames over the rate).
+    pub seconds: f64,
+    /// Xruns the host or server reported (through cpal's error callback).
+    pub host_xruns: u64,
+    /// Times the playback side found the ring without a callback's worth of frames after priming.
+    pub ring_underruns: u64,
+    /// Times the capture side found the ring too full and dropped frames.
+    pub ring_overflows: u64,
+    /// Callbacks whose own processing took longer than their period (wall clock, measured inside).
+    pub late_callbacks: u64,
+    /// Frames dropped to correct drift (input faster than output).
+    pub drift_slips: u64,
+    /// Frames repeated to correct drift (input slower than output).
+    pub drift_repeats: u64,
+    /// Excess buffering dropped at once after a disturbance (e.g. the period shrank).
+    pub resyncs: u64,
+    /// Times the ring was primed again after a period change or an underrun (the first start not counted).
+    pub reprimes: u64,
+    /// Worker results that missed their deadline (the engine's `Monitor::late_results`).
+    pub late_results: u64,
+    /// Non-finite input samples, replaced by 0 before the engine and the dry path.
+    pub nonfinite_inputs: u64,
+    /// Non-finite output samples the safety stage caught.
+    pub nonfinite_outputs: u64,
+    /// Times the safety stage muted.
+    pub mutes: u64,
+    /// Why the output is muted now, if it is.
+    pub muted: Option<MuteReason>,
+    /// Input-to-output latency, mean over the run (device capture and playback delays from cpal's
+    /// timestamps, time in the ring, and the engine's latency), ms.
+    pub latency_ms: f64,
+    /// Smallest latency measured, ms.
+    pub latency_min_ms: f64,
+    /// Largest latency measured, ms.
+    pub latency_max_ms: f64,
+    /// The latest measurement, ms.
+    pub latency_last_ms: f64,
+    /// The engine's part of the latency, ms.
+    pub engine_latency_ms: f64,
+    /// CPU time of the callbacks (thread CPU clocks) and the engine's worker threads over audio time, %
+    /// of one core.
+    pub mean_load_pct: f64,
+    /// The slowest callback, wall clock, % of its period.
+    pub max_callback_pct: f64,
+    /// Frames of the latest input callback.
+    pub input_period_frames: u32,
+    /// Frames of the latest output callback.
+    pub output_period_frames: u32,
+    /// Input callbacks so far.
+    pub input_callbacks: u64,
+    /// Output callbacks so far.
+    pub output_callbacks: u64,
+    /// Errors of other kinds cpal reported (e.g. real-time priority refused), counted only.
+    pub other_errors: u64,
+}
+
+impl Stats {
+    /// Partita's own overruns: ring underruns and overflows plus late callbacks.
+    pub fn overruns(&self) -> u64 {
+        self.ring_underruns + self.ring_overflows + self.late_callbacks
+    }
+
+    /// Drift corrections: slips plus repeats.
+    pub fn drift_corrections(&self) -> u64 {
+        self.drift_slips + self.drift_repeats
+    }
+
+    /// Non-finite samples, input and output.
+    pub fn nonfinite_samples(&self) -> u64 {
+        self.nonfinite_inputs + self.nonfinite_outputs
+    }
+}
+
+/// Input and output peaks since the last read, linear.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct Peaks {
+    /// Largest |sample| of the engine inputs.
+    pub input: f32,
+    /// Largest |sample| sent to the device (after the safety stage).
+    pub output: f32,
+}
+
+/// Atomics shared by the callbacks, the error callbacks and the control side.
+#[derive(Debug)]
+pub(crate) struct Shared {
+    pub rate_hz: u32,
+    pub engine_latency_frames: u64,
+    pub host_xruns: AtomicU64,
+    pub ring_underruns: AtomicU64,
+    pub ring_overflows: AtomicU64,
+    pub late_callbacks: AtomicU64,
+    pub drift_slips: AtomicU64,
+    pub drift_repeats: AtomicU64,
+    pub resyncs: AtomicU64,
+    pub reprimes: AtomicU64,
+    pub nonfinite_inputs: AtomicU64,
+    pub nonfinite_outputs: AtomicU64,
+    pub mutes: AtomicU64,
+    pub mute_reason: AtomicU8,
+    pub other_errors: AtomicU64,
+    pub fault: AtomicU8,
+    pub fault_direction: AtomicU8,
+    pub cpu_ns: AtomicU64,
+    pub max_callback_ppm: AtomicU64,
+    pub frames_out: AtomicU64,
+    pub callbacks_in: AtomicU64,
+    pub callbacks_out: AtomicU64,
+    pub in_period: AtomicU32,
+    pub out_period: AtomicU32,
+    /// Time of the last input callback (ns, the bridge's clock) and its frame count.
+    pub last_input_ns: AtomicU64,
+    pub last_input_frames: AtomicU64,
+    pub capture_delay_ns: AtomicU64,
+    pub latency_last_ns: AtomicU64,
+    pub latency_min_ns: AtomicU64,
+    pub latency_max_ns: AtomicU64,
+    pub latency_sum_ns: AtomicU64,
+    pub latency_count: AtomicU64,
+    pub in_peak: AtomicU32,
+    pub out_peak: AtomicU32,
+    pub wet_bits: AtomicU32,
+    pub dry_bits: AtomicU32,
+    pub bypass: AtomicBool,
+    pub unmute: AtomicBool,
+    pub stall_ns: AtomicU64,
+    pub inject_nonfinite: AtomicBool,
+}
+
+impl Shared {
+    pub fn new(rate_hz: u32, engine_latency_frames: usize, wet: f32, dry: f32) -> Self {
+        let z = || AtomicU64::new(0);
+        Self {
+            rate_hz,
+            engine_latency_frames: engine_latency_frames as u64,
+            host_xruns: z(),
+            ring_underruns: z(),
+            ring_overflows: z(),
+            late_callbacks: z(),
+            drift_slips: z(),
+            drift_repeats: z(),
+            resyncs: z(),
+            reprimes: z(),
+            nonfinite_inputs: z(),
+            nonfinite_outputs: z(),
+            mutes: z(),
+            mute_reason: AtomicU8::new(0),
+            other_errors: z(),
+            fault: AtomicU8::new(0),
+            fault_direction: AtomicU8::new(0),
+            cpu_ns: z(),
+            max_callback_ppm: z(),
+            frames_out: z(),
+            callbacks_in: z(),
+            callbacks_out: z(),
+            in_period: AtomicU32::new(0),
+            out_period: AtomicU32::new(0),
+            last_input_ns: z(),
+            last_input_frames: z(),
+            capture_delay_ns: z(),
+            latency_last_ns: z(),
+            latency_min_ns: AtomicU64::new(u64::MAX),
+            latency_max_ns: z(),
+            latency_sum_ns: z(),
+            latency_count: z(),
+            in_peak: AtomicU32::new(0),
+            out_peak: AtomicU32::new(0),
+            wet_bits: AtomicU32::new(wet.to_bits()),
+            dry_bits: AtomicU32::new(dry.to_bits()),
+            bypass: AtomicBool::new(false),
+            unmute: AtomicBool::new(false),
+            stall_ns: z(),
+            inject_nonfinite: AtomicBool::new(false),
+        }
+    }
+
+    /// Records the first fault; later ones are ignored. Atomics only (called from error callbacks).
+    pub fn set_fault(&self, fault: Fault) {
+        let (c, d) = fault.code();
+        if self.fault.compare_exchange(0, c, Relaxed, Relaxed).is_ok() {
+            self.fault_direction.store(d, Relaxed);
+        }
+    }
+
+    pub fn fault(&self) -> Option<Fault> {
+        Fault::from_code(self.fault.load(Relaxed), self.fault_direction.load(Relaxed))
+    }
+
+    /// What an error callback does with cpal's error: classify it into counters and flags.
+    pub fn note_error(&self, kind: cpal::ErrorKind, direction: Direction) {
+        use cpal::ErrorKind as K;
+        match kind {
+            K::Xrun => {
+                self.host_xruns.fetch_add(1, Relaxed);
+            }
+            K::DeviceNotAvailable => self.set_fault(Fault::DeviceLost(direction)),
+            K::HostUnavailable => self.set_fault(Fault::HostLost(direction)),
+            K::StreamInvalidated => self.set_fault(Fault::StreamInvalidated(direction)),
+            _ => {
+                self.other_errors.fetch_add(1, Relaxed);
+            }
+        }
+    }
+
+    /// Raises a peak meter (non-negative f32 bit patterns order like the integers).
+    #[inline]
+    pub fn raise_peak(meter: &AtomicU32, peak: f32) {
+        if peak > 0.0 {
+            meter.fetch_max(peak.to_bits(), Relaxed);
+        }
+    }
+
+    pub fn take_peaks(&self) -> Peaks {
+        Peaks {
+            input: f32::from_bits(self.in_peak.swap(0, Relaxed)),
+            output: f32::from_bits(self.out_peak.swap(0, Relaxed)),
+        }
+    }
+
+    #[inline]
+    pub fn record_latency(&self, ns: u64) {
+        self.latency_last_ns.store(ns, Relaxed);
+        self.latency_min_ns.fetch_min(ns, Relaxed);
+        self.latency_max_ns.fetch_max(ns, Relaxed);
+        self.latency_sum_ns.fetch_add(ns, Relaxed);
+        self.latency_count.fetch_add(1, Relaxed);
+    }
+
+    /// Records the last input callback's time and frame count (the count first: a reader that sees the
+    /// new time sees the new count; a mismatched pair only ever lasts one callback after a change).
+    #[inline]
+    pub fn store_last_input(&self, now_ns: u64, frames: usize) {
+        self.last_input_frames.store(frames as u64, Release);
+        self.last_input_ns.store(now_ns, Release);
+    }
+
+    #[inline]
+    pub fn last_input(&self) -> (u64, usize) {
+        let t = self.last_input_ns.load(Acquire);
+        (t, self.last_input_frames.load(Acquire) as usize)
+    }
+
+    pub fn snapshot(&self, late_results: u64, worker_cpu_s: f64) -> Stats {
+        let rate = f64::from(self.rate_hz);
+        let seconds = self.frames_out.load(Relaxed) as f64 / rate;
+        let count = self.latency_count.load(Relaxed);
+        let ms = |ns: u64| ns as f64 * 1e-6;
+        let cpu_s = self.cpu_ns.load(Relaxed) as f64 * 1e-9 + worker_cpu_s;
+        Stats {
+            seconds,
+            host_xruns: self.host_xruns.load(Relaxed),
+            ring_underruns: self.ring_underruns.load(Relaxed),
+            ring_overflows: self.ring_overflows.load(Relaxed),
+            late_callbacks: self.late_callbacks.load(Relaxed),
+            drift_slips: self.drift_slips.load(Relaxed),
+            drift_repeats: self.drift_repeats.load(Relaxed),
+            resyncs: self.resyncs.load(Relaxed),
+            reprimes: self.reprimes.load(Relaxed),
+            late_results,
+            nonfinite_inputs: self.nonfinite_inputs.load(Relaxed),
+            nonfinite_outputs: self.nonfinite_outputs.load(Relaxed),
+            mutes: self.mutes.load(Relaxed),
+            muted: MuteReason::from_code(self.mute_reason.load(Relaxed)),
+            latency_ms: if count > 0 { ms(self.latency_sum_ns.load(Relaxed)) / count as f64 } else { 0.0 },
+            latency_min_ms: if count > 0 { ms(self.latency_min_ns.load(Relaxed)) } else { 0.0 },
+            latency_max_ms: ms(self.latency_max_ns.load(Relaxed)),
+            latency_last_ms: ms(self.latency_last_ns.load(Relaxed)),
+            engine_latency_ms: self.engine_latency_frames as f64 * 1000.0 / rate,
+            mean_load_pct: if seconds > 0.0 { 100.0 * cpu_s / seconds } else { 0.0 },
+            max_callback_pct: self.max_callback_ppm.load(Relaxed) as f64 * 1e-4,
+            input_period_frames: self.in_period.load(Relaxed),
+            output_period_frames: self.out_period.load(Relaxed),
+            input_callbacks: self.callbacks_in.load(Relaxed),
+            output_callbacks: self.callbacks_out.load(Relaxed),
+            other_errors: self.other_errors.load(Relaxed),
+        }
+    }
+}

@@ -1,0 +1,414 @@
+//! `partita monitor`: live convolution from an input device to an output device through an IR.
+//!
+//! Opens the host and devices (`partita-device`), loads the IR at the device rate, plans the engine as
+//! `partita plan` does (block size, or a latency budget), starts the streams, prints a caution, a
+//! one-line status a few times a second when stderr is a terminal, and a summary at the end (also as
+//! JSON with `--summary-json`). Ends after `--seconds`, on Ctrl-C (or SIGTERM), or with an error and a
+//! non-zero exit when the device or server goes away. SIGUSR1 toggles bypass, SIGUSR2 ends a safety
+//! mute.
+
+use std::io::{IsTerminal, Write};
+use std::path::PathBuf;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::{Duration, Instant};
+
+use clap::Args;
+use partita_core::{CostModel, Engine, EngineOptions, Kernel, Planner, Schedule, Shape};
+use partita_device::{
+    Ceiling, DeviceOptions, DeviceSelector, EngineSide, LiveDevices, Mix, SafetyOptions, Stats, StreamOptions,
+};
+use partita_io::{load_ir, read_wav_info, IrOptions, Layout, Normalize};
+use serde_json::json;
+
+use super::{dbfs, CmdResult};
+use partita::calibration::machine_costs;
+
+/// Arguments of `partita monitor`.
+#[derive(Debug, Args)]
+pub struct MonitorArgs {
+    /// Impulse response (WAV): 1 channel mono, 2 stereo, 4 true stereo (or --layout).
+    #[arg(long, value_name = "IR.wav")]
+    ir: PathBuf,
+    /// Audio host: `alsa`, or `jack` in a build with the `jack` feature [default: the platform's].
+    #[arg(long, value_name = "NAME")]
+    host: Option<String>,
+    /// Input device: `default`, an index or a name from `partita devices`.
+    #[arg(long, value_name = "DEVICE", default_value = "default")]
+    input: DeviceSelector,
+    /// Output device: `default`, an index or a name from `partita devices`.
+    #[arg(long, value_name = "DEVICE", default_value = "default")]
+    output: DeviceSelector,
+    /// Engine block size B in frames (the engine's latency without --zero-latency) [default: 64].
+    #[arg(long, value_name = "N", conflicts_with = "latency_ms")]
+    block: Option<usize>,
+    /// Device period in frames, where the host lets us choose (JACK runs at the server's period)
+    /// [default: the host's].
+    #[arg(long, value_name = "N")]
+    device_frames: Option<u32>,
+    /// Latency budget for the engine in ms: chooses the block size and mode as `partita plan` does.
+    /// The devices add their own latency (reported at start).
+    #[arg(long, value_name = "MS", allow_negative_numbers = true)]
+    latency_ms: Option<f64>,
+    /// Zero latency: a direct-form head makes the engine sample-accurate.
+    #[arg(long)]
+    zero_latency: bool,
+    /// Schedule of the levels larger than the block: sliced (spread over callbacks, no threads),
+    /// workers (threads) or sync (all in the callback that completes them).
+    #[arg(long, value_name = "S", default_value = "sliced")]
+    schedule: Schedule,
+    /// Ask for real-time (SCHED_FIFO) priorities for engine worker threads (with --schedule workers).
+    #[arg(long)]
+    realtime_workers: bool,
+    /// Level of the convolved (wet) signal, linear [default: 1].
+    #[arg(long, value_name = "W", default_value_t = 1.0, allow_negative_numbers = true)]
+    wet: f64,
+    /// Level of the input (dry) signal, linear, delayed to line up with the wet signal [default: 0].
+    #[arg(long, value_name = "D", default_value_t = 0.0, allow_negative_numbers = true)]
+    dry: f64,
+    /// IR normalization: none (the exact file), peak or energy.
+    #[arg(long, value_name = "MODE", default_value = "none")]
+    normalize: Normalize,
+    /// IR layout instead of the one its channel count implies: mono, mono-to-stereo, stereo,
+    /// true-stereo or matrix:MxN.
+    #[arg(long, value_name = "LAYOUT")]
+    layout: Option<Layout>,
+    /// Sample rate for hosts that offer several [default: the output device's; JACK: the server's].
+    #[arg(long, value_name = "HZ")]
+    rate: Option<u32>,
+    /// Device input channel of each engine input, 1-based, e.g. `3,4` [default: 1, 2, ...].
+    #[arg(long, value_name = "LIST")]
+    input_channels: Option<String>,
+    /// Device output channel of each engine output, 1-based [default: 1, 2, ...].
+    #[arg(long, value_name = "LIST")]
+    output_channels: Option<String>,
+    /// Output ceiling in dBFS (a soft clipper, transparent to 3 dB below it).
+    #[arg(long, value_name = "DB", default_value_t = -1.0, allow_negative_numbers = true)]
+    ceiling_db: f64,
+    /// Hard clip at the ceiling instead of the soft clipper.
+    #[arg(long)]
+    hard_clip: bool,
+    /// Fade-in on start, ms.
+    #[arg(long, value_name = "MS", default_value_t = 250.0)]
+    fade_in_ms: f64,
+    /// Run the engine in the output callback instead of the input callback.
+    #[arg(long)]
+    engine_in_output: bool,
+    /// Frames kept in the bridge's ring beyond one period [default: one period on JACK, period + 32 otherwise].
+    #[arg(long, value_name = "N")]
+    ring_margin: Option<usize>,
+    /// Stop after this many seconds (cleanly, exit 0) [default: until Ctrl-C].
+    #[arg(long, value_name = "S")]
+    seconds: Option<f64>,
+    /// Also write the summary as JSON to this file.
+    #[arg(long, value_name = "FILE")]
+    summary_json: Option<PathBuf>,
+}
+
+static STOP: AtomicBool = AtomicBool::new(false);
+static TOGGLE_BYPASS: AtomicBool = AtomicBool::new(false);
+static UNMUTE: AtomicBool = AtomicBool::new(false);
+
+extern "C" fn on_signal(signal: libc::c_int) {
+    // Only stores to atomics: async-signal-safe.
+    match signal {
+        libc::SIGUSR1 => TOGGLE_BYPASS.store(true, Ordering::SeqCst),
+        libc::SIGUSR2 => UNMUTE.store(true, Ordering::SeqCst),
+        _ => STOP.store(true, Ordering::SeqCst),
+    }
+}
+
+fn install_signal_handlers() {
+    let handler = on_signal as extern "C" fn(libc::c_int) as libc::sighandler_t;
+    for sig in [libc::SIGINT, libc::SIGTERM, libc::SIGUSR1, libc::SIGUSR2] {
+        // SAFETY: the handler only stores to static atomics, which is async-signal-safe.
+        unsafe {
+            libc::signal(sig, handler);
+        }
+    }
+}
+
+fn parse_channel_list(s: &str, what: &str) -> Result<Vec<usize>, String> {
+    s.split(',')
+        .map(|p| match p.trim().parse::<usize>() {
+            Ok(n) if n >= 1 => Ok(n - 1),
+            _ => Err(format!("--{what}: `{p}` is not a channel number (1-based)")),
+        })
+        .collect()
+}
+
+fn db(x: f32) -> String {
+    if x <= 0.0 {
+        "  -inf".into()
+    } else {
+        format!("{:6.1}", dbfs(f64::from(x)))
+    }
+}
+
+/// Runs `partita monitor`.
+pub fn run(args: MonitorArgs) -> CmdResult {
+    if let Some(s) = args.seconds {
+        if !(s.is_finite() && s > 0.0) {
+            return Err(format!("--seconds must be a positive number of seconds, got {s}").into());
+        }
+    }
+    for (name, v) in [("--wet", args.wet), ("--dry", args.dry)] {
+        if !(v.is_finite() && (0.0..=4.0).contains(&v)) {
+            return Err(format!("{name} must be a linear gain from 0 to 4, got {v}").into());
+        }
+    }
+    if !(args.ceiling_db.is_finite() && args.ceiling_db <= 0.0) {
+        return Err(format!("--ceiling-db must be 0 dBFS or below, got {}", args.ceiling_db).into());
+    }
+    eprintln!("{}", partita_device::CAUTION);
+
+    // The IR's header gives the layout, hence the engine's channels, before the devices are opened.
+    let info = read_wav_info(&args.ir)?;
+    let layout = match args.layout {
+        Some(l) => l,
+        None => Layout::from_channels(usize::from(info.channels)).map_err(|e| format!("{}: {e}", args.ir.display()))?,
+    };
+    let routing = layout.routing();
+    let (inputs, outputs) = (routing.inputs(), routing.outputs());
+    let device_options = DeviceOptions {
+        host: args.host.clone(),
+        input: args.input.clone(),
+        output: args.output.clone(),
+        sample_rate_hz: args.rate,
+        device_frames: args.device_frames,
+        input_channels: args.input_channels.as_deref().map(|s| parse_channel_list(s, "input-channels")).transpose()?,
+        output_channels: args
+            .output_channels
+            .as_deref()
+            .map(|s| parse_channel_list(s, "output-channels"))
+            .transpose()?,
+    };
+    let devices = LiveDevices::open(&device_options, inputs, outputs)?;
+    let rate = devices.sample_rate_hz();
+
+    let prepared = load_ir(
+        &args.ir,
+        &IrOptions {
+            sample_rate_hz: Some(rate),
+            normalize: args.normalize,
+            layout: Some(layout),
+            ..IrOptions::default()
+        },
+    )?;
+    if prepared.source.sample_rate_hz != rate {
+        eprintln!("note: the IR was resampled from {} Hz to the device's {rate} Hz", prepared.source.sample_rate_hz);
+    }
+    let ir = prepared.ir;
+    let map = routing.resolve(ir.channels())?;
+    let planner = Planner::new()
+        .block_frames(args.block.unwrap_or(64))
+        .zero_latency(args.zero_latency)
+        .schedule(args.schedule)
+        .cost_model(CostModel::Measured(machine_costs(Kernel::detect(), false)))
+        .shape(Shape::of(&map));
+    let plan = if let Some(ms) = args.latency_ms {
+        if !(ms.is_finite() && ms >= 0.0) {
+            return Err(format!("--latency-ms must be a non-negative number, got {ms}").into());
+        }
+        let budget = (ms * f64::from(rate) / 1000.0).floor() as usize;
+        let (plan, why) = planner.plan_for_latency(budget, ir.frames())?;
+        eprintln!("plan: {why}");
+        plan
+    } else {
+        planner.plan(ir.frames())?
+    };
+    let options = EngineOptions { realtime_workers: args.realtime_workers, ..EngineOptions::new(4096) };
+    let engine = Engine::with_options(&plan, &ir, routing, options)?;
+
+    let stream_options = StreamOptions {
+        side: if args.engine_in_output { EngineSide::Playback } else { EngineSide::Capture },
+        margin_frames: args.ring_margin,
+        safety: SafetyOptions {
+            fade_in_ms: args.fade_in_ms.max(0.0),
+            ceiling_dbfs: args.ceiling_db,
+            ceiling: if args.hard_clip { Ceiling::Hard } else { Ceiling::Soft },
+            ..SafetyOptions::default()
+        },
+        mix: Mix { wet: args.wet as f32, dry: args.dry as f32 },
+        ..StreamOptions::default()
+    };
+    install_signal_handlers();
+    let mut live = devices.start(engine, &stream_options)?;
+    let info = live.info().clone();
+    let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
+        (Some(p), _) => format!("{p} frames"),
+        (None, Some(r)) => format!("{r} frames (requested)"),
+        (None, None) => "host default".to_string(),
+    };
+    eprintln!(
+        "monitor: {} at {} Hz; in `{}` ({} ch {}, period {}) -> out `{}` ({} ch {}, period {})",
+        info.host,
+        rate,
+        info.input.device,
+        info.input.channels,
+        info.input.format,
+        period(&info.input),
+        info.output.device,
+        info.output.channels,
+        info.output.format,
+        period(&info.output)
+    );
+    eprintln!(
+        "engine: {routing:?}, block {}{}, {} level(s) ({}), latency {} frames ({:.3} ms); wet {} dry {}; ceiling {} dBFS \
+         ({}); Ctrl-C stops, SIGUSR1 toggles bypass, SIGUSR2 unmutes",
+        plan.block_frames,
+        if plan.zero_latency { " zero-latency" } else { "" },
+        plan.levels.len(),
+        super::levels_list(&plan),
+        plan.latency_frames(),
+        plan.latency_frames() as f64 * 1000.0 / f64::from(rate),
+        args.wet,
+        args.dry,
+        args.ceiling_db,
+        if args.hard_clip { "hard clip" } else { "soft clip" },
+    );
+
+    let terminal = std::io::stderr().is_terminal();
+    let started = Instant::now();
+    let deadline = args.seconds.map(Duration::from_secs_f64);
+    let mut last_status = Instant::now();
+    let mut fault = None;
+    loop {
+        std::thread::sleep(Duration::from_millis(20));
+        if let Some(f) = live.poll_fault() {
+            fault = Some(f);
+            break;
+        }
+        if STOP.load(Ordering::SeqCst) || deadline.is_some_and(|d| started.elapsed() >= d) {
+            break;
+        }
+        if TOGGLE_BYPASS.swap(false, Ordering::SeqCst) {
+            let h = live.handle();
+            h.set_bypass(!h.bypass());
+        }
+        if UNMUTE.swap(false, Ordering::SeqCst) {
+            live.handle().unmute();
+        }
+        if terminal && last_status.elapsed() >= Duration::from_millis(250) {
+            last_status = Instant::now();
+            let peaks = live.handle().take_peaks();
+            let s = live.stats();
+            let mut line = format!(
+                "in {} dBFS | out {} dBFS | load {:5.2}% | latency {:6.2} ms | xruns {} | overruns {}",
+                db(peaks.input),
+                db(peaks.output),
+                s.mean_load_pct,
+                s.latency_last_ms,
+                s.host_xruns,
+                s.overruns()
+            );
+            if let Some(m) = s.muted {
+                line.push_str(&format!(" | MUTED: {m}"));
+            }
+            if live.handle().bypass() {
+                line.push_str(" | BYPASS");
+            }
+            let mut err = std::io::stderr().lock();
+            let _ = write!(err, "\r\x1b[2K{line}");
+            let _ = err.flush();
+        }
+    }
+    if terminal {
+        eprintln!();
+    }
+    let stats = live.stop();
+    print_summary(&stats, fault.as_ref().map(ToString::to_string).as_deref());
+    if let Some(path) = &args.summary_json {
+        let j = summary_json(&stats, &info, &plan, fault.as_ref().map(ToString::to_string));
+        std::fs::write(path, serde_json::to_string_pretty(&j)? + "\n")
+            .map_err(|e| format!("{}: cannot write the summary: {e}", path.display()))?;
+    }
+    match fault {
+        Some(f) => Err(f.to_string().into()),
+        None => Ok(()),
+    }
+}
+
+fn print_summary(s: &Stats, fault: Option<&str>) {
+    eprintln!("summary: {:.1} s of audio", s.seconds);
+    eprintln!(
+        "  latency      {:.3} ms mean input to output (min {:.3}, max {:.3}; engine {:.3})",
+        s.latency_ms, s.latency_min_ms, s.latency_max_ms, s.engine_latency_ms
+    );
+    eprintln!(
+        "  load         {:.3}% of one core mean; slowest callback {:.1}% of its period",
+        s.mean_load_pct, s.max_callback_pct
+    );
+    eprintln!("  xruns        {} reported by the host", s.host_xruns);
+    eprintln!(
+        "  overruns     {} of ours ({} ring underruns, {} ring overflows, {} callbacks over their period)",
+        s.overruns(),
+        s.ring_underruns,
+        s.ring_overflows,
+        s.late_callbacks
+    );
+    eprintln!(
+        "  drift        {} corrections ({} slipped, {} repeated); {} re-primes, {} resyncs",
+        s.drift_corrections(),
+        s.drift_slips,
+        s.drift_repeats,
+        s.reprimes,
+        s.resyncs
+    );
+    eprintln!("  late results {}", s.late_results);
+    eprintln!(
+        "  non-finite   {} samples ({} in, {} out)",
+        s.nonfinite_samples(),
+        s.nonfinite_inputs,
+        s.nonfinite_outputs
+    );
+    match s.muted {
+        Some(m) => eprintln!("  safety       {} mute(s); muted at the end: {m}", s.mutes),
+        None => eprintln!("  safety       {} mute(s)", s.mutes),
+    }
+    if let Some(f) = fault {
+        eprintln!("  ended by     {f}");
+    }
+}
+
+fn summary_json(
+    s: &Stats,
+    info: &partita_device::LiveInfo,
+    plan: &partita_core::Plan,
+    fault: Option<String>,
+) -> serde_json::Value {
+    json!({
+        "seconds": s.seconds,
+        "xruns": s.host_xruns,
+        "overruns": s.overruns(),
+        "ring_underruns": s.ring_underruns,
+        "ring_overflows": s.ring_overflows,
+        "late_callbacks": s.late_callbacks,
+        "drift_corrections": s.drift_corrections(),
+        "drift_slips": s.drift_slips,
+        "drift_repeats": s.drift_repeats,
+        "reprimes": s.reprimes,
+        "resyncs": s.resyncs,
+        "late_results": s.late_results,
+        "nonfinite_samples": s.nonfinite_samples(),
+        "nonfinite_inputs": s.nonfinite_inputs,
+        "nonfinite_outputs": s.nonfinite_outputs,
+        "mutes": s.mutes,
+        "muted": s.muted.map(|m| m.to_string()),
+        "latency_ms": s.latency_ms,
+        "latency_min_ms": s.latency_min_ms,
+        "latency_max_ms": s.latency_max_ms,
+        "engine_latency_ms": s.engine_latency_ms,
+        "mean_load_pct": s.mean_load_pct,
+        "max_callback_pct": s.max_callback_pct,
+        "host": info.host,
+        "sample_rate_hz": info.sample_rate_hz,
+        "input_device": info.input.device,
+        "output_device": info.output.device,
+        "input_period_frames": s.input_period_frames,
+        "output_period_frames": s.output_period_frames,
+        "block_frames": plan.block_frames,
+        "zero_latency": plan.zero_latency,
+        "engine_side": match info.side { EngineSide::Capture => "input", EngineSide::Playback => "output" },
+        "fault": fault,
+    })
+}

@@ -1,0 +1,253 @@
+//! `partita monitor` and `partita devices` against a private JACK server (dummy driver), one per test,
+//! run one at a time. Built only with `--features jack`; without a startable server the tests skip with
+//! a message, which is a failure when `CI` is set.
+#![cfg(feature = "jack")]
+
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Output, Stdio};
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::{Mutex, MutexGuard};
+use std::time::{Duration, Instant};
+
+static SERIAL: Mutex<()> = Mutex::new(());
+static COUNTER: AtomicUsize = AtomicUsize::new(0);
+
+fn serial() -> MutexGuard<'static, ()> {
+    SERIAL.lock().unwrap_or_else(|e| e.into_inner())
+}
+
+/// `jackd -n NAME --no-realtime -d dummy -r 48000 -p PERIOD`, stopped by its pid on drop.
+struct JackServer {
+    name: String,
+    child: Option<Child>,
+}
+
+impl JackServer {
+    fn start(period: u32) -> Option<Self> {
+        let name = format!("partita-cli-{}-{}", std::process::id(), COUNTER.fetch_add(1, Ordering::SeqCst));
+        let child = Command::new("jackd")
+            .args(["-n", &name, "--no-realtime", "-d", "dummy", "-r", "48000", "-p", &period.to_string()])
+            .stdin(Stdio::null())
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .spawn()
+            .ok()?;
+        let server = Self { name, child: Some(child) };
+        let deadline = Instant::now() + Duration::from_secs(10);
+        while Instant::now() < deadline {
+            let up = Command::new("jack_lsp")
+                .args(["-s", &server.name])
+                .env("JACK_NO_START_SERVER", "1")
+                .stdout(Stdio::null())
+                .stderr(Stdio::null())
+                .status()
+                .is_ok_and(|s| s.success());
+            if up {
+                return Some(server);
+            }
+            std::thread::sleep(Duration::from_millis(50));
+        }
+        None
+    }
+
+    fn kill_now(&mut self) {
+        if let Some(mut c) = self.child.take() {
+            let _ = c.kill();
+            let _ = c.wait();
+        }
+    }
+}
+
+impl Drop for JackServer {
+    fn drop(&mut self) {
+        if let Some(mut c) = self.child.take() {
+            // SAFETY: kill(2) on our own child's pid with a valid signal number.
+            unsafe {
+                libc::kill(c.id() as libc::pid_t, libc::SIGTERM);
+            }
+            let deadline = Instant::now() + Duration::from_secs(2);
+            while Instant::now() < deadline {
+                if let Ok(Some(_)) = c.try_wait() {
+                    return;
+                }
+                std::thread::sleep(Duration::from_millis(20));
+            }
+            let _ = c.kill();
+            let _ = c.wait();
+        }
+    }
+}
+
+fn jack_or_skip(test: &str, period: u32) -> Option<JackServer> {
+    let server = JackServer::start(period);
+    if server.is_none() {
+        let msg = format!(
+            "{test}: SKIP: no JACK server could be started (is jackd installed? scripts/check installs jackd2)"
+        );
+        assert!(std::env::var_os("CI").is_none(), "{msg}; CI is set, so this is a failure");
+        eprintln!("{msg}");
+    }
+    server
+}
+
+fn partita(server: &str) -> Command {
+    let mut c = Command::new(env!("CARGO_BIN_EXE_partita"));
+    c.env("JACK_DEFAULT_SERVER", server).env("JACK_NO_START_SERVER", "1").stdin(Stdio::null());
+    c
+}
+
+fn scratch(test: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("partita-cli-monitor-{}-{test}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    dir
+}
+
+/// A synthetic stereo IR of `seconds` at 48 kHz.
+fn write_ir(dir: &Path, seconds: f64) -> PathBuf {
+    let frames = (seconds * 48_000.0) as usize;
+    let chans: Vec<Vec<f32>> = (0..2)
+        .map(|c| {
+            partita_core::synth::decaying_noise(frames, frames as f64 * 0.8, 3 + c).iter().map(|v| 0.3 * v).collect()
+        })
+        .collect();
+    let path = dir.join("ir.wav");
+    partita_io::write_wav_atomic(&path, &chans, 48_000, partita_io::SampleFormat::F32, partita_io::Dither::OFF)
+        .unwrap();
+    path
+}
+
+fn text(o: &Output) -> (String, String) {
+    (String::from_utf8_lossy(&o.stdout).into_owned(), String::from_utf8_lossy(&o.stderr).into_owned())
+}
+
+/// `partita monitor --seconds 5` with a 2 s stereo IR at block 256 (server period 256) runs, exits 0,
+/// prints the caution and a summary (no status line: stderr is not a terminal) and writes the JSON
+/// summary with zero overruns of ours. A functional check with a generous budget.
+#[test]
+fn monitor_runs_for_seconds_and_reports_zero_overruns() {
+    let _serial = serial();
+    let Some(server) = jack_or_skip("monitor_runs_for_seconds_and_reports_zero_overruns", 256) else { return };
+    let dir = scratch("seconds");
+    let ir = write_ir(&dir, 2.0);
+    let json = dir.join("summary.json");
+    let t = Instant::now();
+    let out = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--ir"])
+        .arg(&ir)
+        .args(["--block", "256", "--seconds", "5", "--summary-json"])
+        .arg(&json)
+        .output()
+        .unwrap();
+    let (_, err) = text(&out);
+    eprintln!("{err}");
+    assert!(out.status.success(), "exit {:?}: {err}", out.status);
+    assert!(t.elapsed() < Duration::from_secs(30), "took {:?}", t.elapsed());
+    assert!(err.contains("CAUTION") && err.contains("headphones") && err.contains("feedback"), "{err}");
+    assert!(err.contains("summary:") && err.contains("overruns"), "{err}");
+    assert!(!err.contains('\r'), "no status line when stderr is not a terminal");
+    let v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    for key in [
+        "xruns",
+        "overruns",
+        "drift_corrections",
+        "late_results",
+        "nonfinite_samples",
+        "latency_ms",
+        "mean_load_pct",
+        "seconds",
+    ] {
+        assert!(v.get(key).is_some_and(|x| x.is_number()), "summary lacks `{key}`: {v}");
+    }
+    assert_eq!(v["overruns"], 0, "{v}");
+    assert_eq!(v["drift_corrections"], 0, "{v}");
+    assert_eq!(v["nonfinite_samples"], 0, "{v}");
+    assert_eq!(v["host"], "JACK");
+    assert_eq!(v["block_frames"], 256);
+    let seconds = v["seconds"].as_f64().unwrap();
+    assert!((4.5..6.0).contains(&seconds), "{seconds} s of audio");
+    // Engine 5.33 ms plus the device side: a few periods of 5.33 ms.
+    let latency = v["latency_ms"].as_f64().unwrap();
+    assert!(latency > 5.3 && latency < 60.0, "latency {latency} ms");
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// The server is killed mid-run: monitor says so and exits non-zero within 2 s.
+#[test]
+fn monitor_exits_nonzero_soon_after_the_server_dies() {
+    let _serial = serial();
+    let Some(mut server) = jack_or_skip("monitor_exits_nonzero_soon_after_the_server_dies", 256) else { return };
+    let dir = scratch("killed");
+    let ir = write_ir(&dir, 0.5);
+    let json = dir.join("summary.json");
+    let child = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--ir"])
+        .arg(&ir)
+        .args(["--seconds", "60", "--summary-json"])
+        .arg(&json)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    std::thread::sleep(Duration::from_millis(2500));
+    server.kill_now();
+    let killed = Instant::now();
+    let (tx, rx) = std::sync::mpsc::channel();
+    let pid = child.id();
+    std::thread::spawn(move || {
+        let _ = tx.send(child.wait_with_output());
+    });
+    let out = match rx.recv_timeout(Duration::from_secs(2)) {
+        Ok(out) => out.unwrap(),
+        Err(_) => {
+            // SAFETY: kill(2) on our own child's pid.
+            unsafe {
+                libc::kill(pid as libc::pid_t, libc::SIGKILL);
+            }
+            panic!("partita monitor still running 2 s after the server died");
+        }
+    };
+    let took = killed.elapsed();
+    let (_, err) = text(&out);
+    eprintln!("exited after {took:?}:\n{err}");
+    assert!(!out.status.success(), "a dead server must give a non-zero exit");
+    assert!(err.contains("partita: error:"), "{err}");
+    assert!(err.contains("JACK server stopped") || err.contains("stopped calling back"), "{err}");
+    let v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert!(v["fault"].is_string(), "{v}");
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// Without a server the command fails with one clear line saying so.
+#[test]
+fn monitor_without_a_server_says_so() {
+    let _serial = serial();
+    let dir = scratch("noserver");
+    let ir = write_ir(&dir, 0.1);
+    let out = partita("partita-no-such-server").args(["monitor", "--host", "jack", "--ir"]).arg(&ir).output().unwrap();
+    let (_, err) = text(&out);
+    assert!(!out.status.success());
+    assert!(err.contains("is the JACK server running"), "{err}");
+    let out =
+        partita("partita-no-such-server").args(["monitor", "--host", "nosuchhost", "--ir"]).arg(&ir).output().unwrap();
+    let (_, err) = text(&out);
+    assert!(!out.status.success());
+    assert!(err.contains("no audio host `nosuchhost`") && err.contains("JACK"), "{err}");
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// `partita devices` lists the JACK server's devices with their configuration, as text and JSON.
+#[test]
+fn devices_lists_the_jack_devices() {
+    let _serial = serial();
+    let Some(server) = jack_or_skip("devices_lists_the_jack_devices", 128) else { return };
+    let out = partita(&server.name).args(["devices", "--host", "jack"]).output().unwrap();
+    let (text_out, err) = text(&out);
+    assert!(out.status.success(), "{err}");
+    assert!(text_out.contains("JACK Input") && text_out.contains("JACK Output"), "{text_out}");
+    assert!(text_out.contains("48000 Hz, f32, period 128 frames"), "{text_out}");
+    let out = partita(&server.name).args(["devices", "--host", "jack", "--json"]).output().unwrap();
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let devices = v["hosts"][0]["devices"].as_array().unwrap();
+    assert_eq!(devices.len(), 2, "{v}");
+    assert_eq!(devices[0]["input_configs"][0]["buffer_frames"]["min"], 128, "{v}");
+}
