@@ -328,6 +328,8 @@ pub struct PlaybackSide {
     last_frames: usize,
     last_input_frames: usize,
     disturbed: u8,
+    min_fill: usize,
+    window_frames: usize,
 }
 
 impl std::fmt::Debug for CaptureSide {
@@ -450,6 +452,8 @@ impl Bridge {
             last_frames: 0,
             last_input_frames: 0,
             disturbed: 0,
+            min_fill: usize::MAX,
+            window_frames: 0,
         };
         Ok(Self { capture, playback, handle })
     }
@@ -562,6 +566,8 @@ impl PlaybackSide {
                 }
                 self.started = true;
                 self.drift.reset();
+                self.min_fill = usize::MAX;
+                self.window_frames = 0;
             } else {
                 fill_silence(data);
                 timer.finish(shared, frames);
@@ -584,14 +590,22 @@ impl PlaybackSide {
         let since_in_ns = time.now_ns.saturating_sub(t_in);
         let gathered = (since_in_ns as f64 * 1e-9 * rate).min(n_in as f64);
         let mut correction = self.drift.observe(fill as f64 + gathered, frames);
-        if let (Correction::None, Some(reference)) = (correction, self.drift.reference()) {
-            // Far more buffered than needed (the period shrank): drop the excess at once.
-            let excess = reference - (target + 2 * n_in.max(frames)) as f64;
-            if excess >= 1.0 && fill >= frames + excess as usize {
-                self.cons.skip(excess as usize * w);
+        // Excess buffering (after a glitch, or when the period shrank) shows as a floor under the level:
+        // when the lowest fill over a quarter second stays a whole period above the target, drop the
+        // excess at once. Ordering races between the two callbacks only ever add to the fill, so the
+        // minimum is the honest measure.
+        self.min_fill = self.min_fill.min(fill);
+        self.window_frames += frames;
+        if self.window_frames * 4 >= shared.rate_hz as usize {
+            let slack = n_in.max(frames);
+            if correction == Correction::None && self.min_fill >= target + slack && self.disturbed == 0 {
+                let excess = self.min_fill - target;
+                self.cons.skip(excess * w);
                 shared.resyncs.fetch_add(1, Relaxed);
                 self.drift.reset();
             }
+            self.min_fill = usize::MAX;
+            self.window_frames = 0;
         }
         let fill = self.cons.occupied_len() / w;
         if correction == Correction::Slip && fill < frames + 1 {

@@ -51,7 +51,12 @@
 //! [`EngineSide::Capture`] (default) runs the engine in the input callback and rings finished output
 //! frames, so the output callback only copies and any jitter of the engine's time is absorbed by the
 //! ring rather than by the output device's buffer. On a JACK server the two callbacks run in one cycle
-//! and the choice makes no measurable difference.
+//! and the choice made no difference beyond the noise of the measurement (the crate's `NOTES.md` has
+//! the figures).
+//!
+//! ## Safety
+//! See [`safety`]: a 250 ms fade-in, a -1 dBFS ceiling (a soft clipper without look-ahead), and a latched
+//! mute on non-finite output or 400 ms of sustained full-scale output.
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
 #![forbid(unsafe_code)]

@@ -20,6 +20,8 @@ pub fn serial() -> MutexGuard<'static, ()> {
 pub struct JackServer {
     pub name: String,
     child: Option<Child>,
+    /// Killed with SIGKILL: its slot in JACK's server registry (/dev/shm, 8 slots) is left behind.
+    killed: bool,
 }
 
 impl JackServer {
@@ -27,6 +29,11 @@ impl JackServer {
     /// the server does not come up within 10 s.
     pub fn start(period: u32) -> Option<Self> {
         let name = format!("partita-test-{}-{}", std::process::id(), COUNTER.fetch_add(1, Ordering::SeqCst));
+        Self::start_named(&name, period)
+    }
+
+    fn start_named(name: &str, period: u32) -> Option<Self> {
+        let name = name.to_string();
         let log = std::env::temp_dir().join(format!("{name}.log"));
         let log_file = std::fs::File::create(&log).ok()?;
         let child = Command::new("jackd")
@@ -36,7 +43,7 @@ impl JackServer {
             .stderr(log_file)
             .spawn()
             .ok()?;
-        let mut server = Self { name, child: Some(child) };
+        let mut server = Self { name, child: Some(child), killed: false };
         let deadline = Instant::now() + Duration::from_secs(10);
         while Instant::now() < deadline {
             if let Some(c) = server.child.as_mut() {
@@ -88,27 +95,42 @@ impl JackServer {
         if let Some(mut c) = self.child.take() {
             let _ = c.kill();
             let _ = c.wait();
+            self.killed = true;
         }
     }
 }
 
+/// Stops a server with SIGTERM (it then cleans its shared memory), SIGKILL if it lingers.
+fn terminate(mut c: Child) {
+    // SAFETY: kill(2) on our own child's pid with a valid signal number.
+    unsafe {
+        libc::kill(c.id() as libc::pid_t, libc::SIGTERM);
+    }
+    let deadline = Instant::now() + Duration::from_secs(2);
+    while Instant::now() < deadline {
+        if let Ok(Some(_)) = c.try_wait() {
+            return;
+        }
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    let _ = c.kill();
+    let _ = c.wait();
+}
+
 impl Drop for JackServer {
     fn drop(&mut self) {
-        if let Some(mut c) = self.child.take() {
-            // SIGTERM lets jackd clean its shared memory; SIGKILL if it lingers.
-            // SAFETY: kill(2) on our own child's pid with a valid signal number.
-            unsafe {
-                libc::kill(c.id() as libc::pid_t, libc::SIGTERM);
-            }
-            let deadline = Instant::now() + Duration::from_secs(2);
-            while Instant::now() < deadline {
-                if let Ok(Some(_)) = c.try_wait() {
-                    return;
+        if self.killed {
+            // A server of the same name takes over the dead one's registry slot; stopped cleanly, it
+            // frees it. Without this, killed servers fill JACK's 8 slots ("Too many servers").
+            if let Some(mut again) = Self::start_named(&self.name, 256) {
+                if let Some(c) = again.child.take() {
+                    terminate(c);
                 }
-                std::thread::sleep(Duration::from_millis(20));
             }
-            let _ = c.kill();
-            let _ = c.wait();
+            return;
+        }
+        if let Some(c) = self.child.take() {
+            terminate(c);
         }
     }
 }
