@@ -24,6 +24,10 @@ enum Command {
     Render(cmd::render::RenderArgs),
     /// Choose a partition for an IR length and a block size or latency budget; show its cost.
     Plan(cmd::plan::PlanArgs),
+    /// Convolve live: an input device through an IR to an output device (needs the `live` feature).
+    Monitor(cmd::monitor::MonitorArgs),
+    /// List the audio hosts, their devices and supported configurations (needs the `live` feature).
+    Devices(cmd::devices::DevicesArgs),
     /// (Maintainers) Regenerate the synthetic demo IRs and dry phrase of demo-data/.
     MakeDemoData(cmd::demo_data::MakeDemoDataArgs),
 }
@@ -34,6 +38,8 @@ fn main() -> ExitCode {
         Command::Demo(args) => cmd::demo::run(args),
         Command::Render(args) => cmd::render::run(args),
         Command::Plan(args) => cmd::plan::run(args),
+        Command::Monitor(args) => cmd::monitor::run(args),
+        Command::Devices(args) => cmd::devices::run(args),
         Command::MakeDemoData(args) => cmd::demo_data::run(args),
     };
     match result {

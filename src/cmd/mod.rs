@@ -5,6 +5,48 @@ pub mod demo_data;
 pub mod plan;
 pub mod render;
 
+#[cfg(feature = "live")]
+pub mod devices;
+#[cfg(feature = "live")]
+pub mod monitor;
+
+/// What `monitor` and `devices` say in a build without the `live` feature.
+#[cfg(not(feature = "live"))]
+const NO_LIVE: &str = "this build has no live audio: rebuild with `cargo build --release --features live` \
+                       (ALSA; needs libasound2-dev) or `--features jack` (ALSA and JACK; needs libjack-jackd2-dev too)";
+
+/// `partita monitor` in a build without live audio: says how to get it.
+#[cfg(not(feature = "live"))]
+pub mod monitor {
+    /// Arguments of `partita monitor` (accepted and ignored: live audio is not in this build).
+    #[derive(Debug, clap::Args)]
+    pub struct MonitorArgs {
+        #[arg(trailing_var_arg = true, allow_hyphen_values = true, hide = true)]
+        args: Vec<String>,
+    }
+
+    /// Fails with how to build with live audio.
+    pub fn run(_: MonitorArgs) -> super::CmdResult {
+        Err(super::NO_LIVE.into())
+    }
+}
+
+/// `partita devices` in a build without live audio: says how to get it.
+#[cfg(not(feature = "live"))]
+pub mod devices {
+    /// Arguments of `partita devices` (accepted and ignored: live audio is not in this build).
+    #[derive(Debug, clap::Args)]
+    pub struct DevicesArgs {
+        #[arg(trailing_var_arg = true, allow_hyphen_values = true, hide = true)]
+        args: Vec<String>,
+    }
+
+    /// Fails with how to build with live audio.
+    pub fn run(_: DevicesArgs) -> super::CmdResult {
+        Err(super::NO_LIVE.into())
+    }
+}
+
 /// What a subcommand returns: an error becomes one line on stderr and exit code 1.
 pub type CmdResult = Result<(), Box<dyn std::error::Error>>;
 

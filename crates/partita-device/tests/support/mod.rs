@@ -22,6 +22,8 @@ pub struct JackServer {
     child: Option<Child>,
     /// Killed with SIGKILL: its slot in JACK's server registry (/dev/shm, 8 slots) is left behind.
     killed: bool,
+    /// jackd's output, removed on drop.
+    log: std::path::PathBuf,
 }
 
 impl JackServer {
@@ -43,7 +45,7 @@ impl JackServer {
             .stderr(log_file)
             .spawn()
             .ok()?;
-        let mut server = Self { name, child: Some(child), killed: false };
+        let mut server = Self { name, child: Some(child), killed: false, log: log.clone() };
         let deadline = Instant::now() + Duration::from_secs(10);
         while Instant::now() < deadline {
             if let Some(c) = server.child.as_mut() {
@@ -119,6 +121,7 @@ fn terminate(mut c: Child) {
 
 impl Drop for JackServer {
     fn drop(&mut self) {
+        let _ = std::fs::remove_file(&self.log);
         if self.killed {
             // A server of the same name takes over the dead one's registry slot; stopped cleanly, it
             // frees it. Without this, killed servers fill JACK's 8 slots ("Too many servers").
