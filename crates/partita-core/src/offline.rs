@@ -46,7 +46,9 @@ use crate::routing::Routing;
 /// cache and the cost rises again. `cargo bench --bench offline` repeats a block sweep (BENCHMARKS.md).
 pub const OFFLINE_MAX_BLOCK_FRAMES: usize = 1 << 17;
 
-/// Smallest engine block [`offline_plan`] uses: below it the per-block overhead dominates.
+/// Smallest engine block [`offline_plan`] uses, so a short IR still renders in big blocks (an FFT pair
+/// of 2048 points per 1024 frames costs about as much per frame as direct form for a 50-tap IR; the
+/// per-block bookkeeping is then negligible). A judgement, not a measurement.
 pub const OFFLINE_MIN_BLOCK_FRAMES: usize = 1024;
 
 /// Largest level the offline planner may open (the optimal mode's `max_level_frames`).
@@ -149,8 +151,9 @@ pub fn offline_plan(ir_frames: usize, shape: Shape) -> Result<Plan, PlanError> {
     offline_planner(ir_frames).shape(shape).plan(ir_frames)
 }
 
-/// Renders the full convolution of `inputs` through `ir` with `routing`. Allocates: one engine per thread
-/// (each holds the IR's spectra), one output buffer per segment and the returned outputs.
+/// Renders the full convolution of `inputs` through `ir` with `routing`. Allocates: the returned outputs,
+/// one engine per thread (each holds the IR's spectra) and, per segment, an `ir_frames - 1` tail buffer
+/// and two host-call buffers. Segments write the rest of their result straight into the outputs.
 ///
 /// Returns one signal per routing output, each `frames + ir.frames() - 1` long (empty when the inputs
 /// are empty), where output frame `n` is `sum_k h[k] x[n - k]` summed over the output's paths: the
