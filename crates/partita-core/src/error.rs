@@ -182,6 +182,8 @@ pub enum EngineError {
     MaxHostFramesZero,
     /// A worker thread could not be started.
     Spawn(String),
+    /// The IR could not be prepared.
+    Control(ControlError),
 }
 
 impl fmt::Display for EngineError {
@@ -196,6 +198,7 @@ impl fmt::Display for EngineError {
             ),
             Self::MaxHostFramesZero => write!(f, "max_host_frames is 0; hosts call with at least 1 frame"),
             Self::Spawn(e) => write!(f, "could not start a worker thread: {e}"),
+            Self::Control(e) => write!(f, "{e}"),
         }
     }
 }
@@ -205,6 +208,7 @@ impl std::error::Error for EngineError {
         match self {
             Self::Plan(e) => Some(e),
             Self::Routing(e) => Some(e),
+            Self::Control(e) => Some(e),
             _ => None,
         }
     }
@@ -264,3 +268,51 @@ impl fmt::Display for ProcessError {
 }
 
 impl std::error::Error for ProcessError {}
+
+/// Why the control side refused an IR or a parameter.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ControlError {
+    /// The IR has another channel count than the engine's, so its routing would differ.
+    RoutingMismatch {
+        /// IR channels the engine's routing uses.
+        expected: usize,
+        /// IR channels given.
+        got: usize,
+    },
+    /// The IR's sample rate differs from the engine's (resample it first).
+    RateMismatch {
+        /// The engine's rate in Hz.
+        expected: u32,
+        /// The IR's rate in Hz.
+        got: u32,
+    },
+    /// The IR is longer than the engine's plan covers.
+    IrTooLong {
+        /// Taps in the IR.
+        ir_frames: usize,
+        /// Taps the plan covers.
+        max_frames: usize,
+    },
+}
+
+impl fmt::Display for ControlError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::RoutingMismatch { expected, got } => write!(
+                f,
+                "impulse response has {got} channels but the running engine's routing uses {expected}; \
+                 a swap keeps the routing, so build a new engine for another layout"
+            ),
+            Self::RateMismatch { expected, got } => {
+                write!(f, "impulse response is at {got} Hz but the engine runs at {expected} Hz; resample it first")
+            }
+            Self::IrTooLong { ir_frames, max_frames } => write!(
+                f,
+                "impulse response has {ir_frames} taps but the engine's plan covers {max_frames}; \
+                 build the engine with a plan for the longest IR you will swap in"
+            ),
+        }
+    }
+}
+
+impl std::error::Error for ControlError {}

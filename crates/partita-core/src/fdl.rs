@@ -55,6 +55,18 @@ impl Spectra {
     }
 }
 
+/// A set of the engine's two IR slots: bit `s` for slot `s`.
+pub(crate) type SlotMask = u8;
+
+/// The rings and stream position a level works on at a block boundary.
+pub(crate) struct LevelIo<'a> {
+    pub(crate) inputs: &'a [TimeRing],
+    /// Accumulator rings per IR slot.
+    pub(crate) outputs: &'a mut [Vec<TimeRing>; 2],
+    pub(crate) now: i64,
+    pub(crate) emit: i64,
+}
+
 /// What one output of a group sums: (index into the group's inputs, index into the group's IR spectra).
 #[derive(Debug, Clone)]
 pub(crate) struct OutputTerms {
@@ -70,8 +82,13 @@ pub(crate) struct LevelIr {
 
 impl LevelIr {
     /// Transforms `[offset, offset + P N)` of each channel (zero-padded past its end). Allocates.
-    pub(crate) fn new(channels: &[&[f32]], n: usize, partitions: usize, offset: usize) -> Self {
-        let mut planner = RealFftPlanner::<f32>::new();
+    pub(crate) fn new(
+        channels: &[&[f32]],
+        n: usize,
+        partitions: usize,
+        offset: usize,
+        planner: &mut RealFftPlanner<f32>,
+    ) -> Self {
         let fwd = planner.plan_fft_forward(2 * n);
         let mut time = fwd.make_input_vec();
         let mut spec = fwd.make_output_vec();
@@ -97,6 +114,31 @@ impl LevelIr {
             .collect();
         Self { spectra }
     }
+
+    /// Bytes held by the spectra.
+    pub(crate) fn memory_bytes(&self) -> usize {
+        self.spectra.iter().map(Spectra::bytes).sum()
+    }
+}
+
+/// Zeroes up to `budget` samples of the concatenation of `bufs`, starting at sample `pos` of it. Returns
+/// the position to continue from, or `None` when the end was reached.
+pub(crate) fn sweep<'a>(bufs: impl Iterator<Item = &'a mut [f32]>, pos: usize, budget: usize) -> Option<usize> {
+    let (mut base, mut left) = (0usize, budget);
+    for buf in bufs {
+        let len = buf.len();
+        if pos < base + len {
+            let from = pos.saturating_sub(base);
+            let upto = (from + left).min(len);
+            buf[from..upto].fill(0.0);
+            left -= upto - from;
+            if left == 0 {
+                return Some(base + upto);
+            }
+        }
+        base += len;
+    }
+    None
 }
 
 /// The run-time state of one level for one routing group.
@@ -119,10 +161,9 @@ pub(crate) struct LevelRunner {
     fdl: Vec<Spectra>,
     newest: usize,
     outputs: Vec<OutputTerms>,
-    ir: LevelIr,
     acc_re: Vec<f32>,
     acc_im: Vec<f32>,
-    /// Per group output: the level's last result, N samples.
+    /// Per IR slot and group output (index `slot * outputs + which`): the level's last result, N samples.
     results: Vec<Vec<f32>>,
 }
 
@@ -157,14 +198,13 @@ impl LevelRunner {
         planner: &mut RealFftPlanner<f32>,
         inputs: Vec<usize>,
         outputs: Vec<OutputTerms>,
-        ir: LevelIr,
     ) -> Self {
         let n = shape.n;
         let fwd = planner.plan_fft_forward(2 * n);
         let inv = planner.plan_fft_inverse(2 * n);
         let scratch_len = fwd.get_scratch_len().max(inv.get_scratch_len());
         let fdl = inputs.iter().map(|_| Spectra::new(shape.partitions, n + 1)).collect();
-        let results = outputs.iter().map(|_| vec![0.0; n]).collect();
+        let results = (0..2 * outputs.len()).map(|_| vec![0.0; n]).collect();
         Self {
             n,
             partitions: shape.partitions,
@@ -181,7 +221,6 @@ impl LevelRunner {
             fdl,
             newest: 0,
             outputs,
-            ir,
             acc_re: vec![0.0; n + 1],
             acc_im: vec![0.0; n + 1],
             results,
@@ -269,19 +308,21 @@ impl LevelRunner {
         self.acc_im.fill(0.0);
     }
 
-    /// Adds partitions `parts` over bins `bins` of group output `which` into the accumulator.
+    /// Adds partitions `parts` over bins `bins` of group output `which`, with the IR spectra `ir`, into
+    /// the accumulator.
     pub(crate) fn mac_range(
         &mut self,
         which: usize,
         kernel: Kernel,
         parts: std::ops::Range<usize>,
         bins: std::ops::Range<usize>,
+        ir: &LevelIr,
     ) {
         let p_count = self.partitions;
         let (ar, ai) = (&mut self.acc_re[bins.clone()], &mut self.acc_im[bins.clone()]);
-        for &(input, ir) in &self.outputs[which].terms {
+        for &(input, c) in &self.outputs[which].terms {
             let x = &self.fdl[input];
-            let h = &self.ir.spectra[ir];
+            let h = &ir.spectra[c];
             for p in parts.clone() {
                 let slot = (self.newest + p_count - p) % p_count;
                 let (xr, xi) = x.slot(slot);
@@ -300,14 +341,15 @@ impl LevelRunner {
         spec[self.n].im = 0.0;
     }
 
-    /// Sets the result of group output `which` (N samples).
-    pub(crate) fn result_mut(&mut self, which: usize) -> &mut [f32] {
-        &mut self.results[which]
+    /// Sets the result of group output `which` for IR slot `slot` (N samples).
+    pub(crate) fn result_mut(&mut self, slot: usize, which: usize) -> &mut [f32] {
+        let k = slot * self.outputs.len() + which;
+        &mut self.results[k]
     }
 
-    /// The result of group output `which`.
-    pub(crate) fn result(&self, which: usize) -> &[f32] {
-        &self.results[which]
+    /// The result of group output `which` for IR slot `slot`.
+    pub(crate) fn result(&self, slot: usize, which: usize) -> &[f32] {
+        &self.results[slot * self.outputs.len() + which]
     }
 
     /// Transforms each group input's window ending `delay` frames before `now` into the delay line.
@@ -320,55 +362,68 @@ impl LevelRunner {
 
     /// Accumulates `sum_p X[k - p] H[p]` for group output `which` into the accumulator, in tiles of bins
     /// so the accumulator stays in L1 while the partitions stream by.
-    pub(crate) fn accumulate(&mut self, which: usize, kernel: Kernel) {
+    pub(crate) fn accumulate(&mut self, which: usize, kernel: Kernel, ir: &LevelIr) {
         let bins = self.n + 1;
         self.clear_acc();
         let mut lo = 0;
         while lo < bins {
             let hi = (lo + TILE_BINS).min(bins);
-            self.mac_range(which, kernel, 0..self.partitions, lo..hi);
+            self.mac_range(which, kernel, 0..self.partitions, lo..hi, ir);
             lo = hi;
         }
     }
 
-    /// Inverse-transforms the accumulator into the result for group output `which`.
-    pub(crate) fn inverse(&mut self, which: usize) {
+    /// Inverse-transforms the accumulator into the result for group output `which` of IR slot `slot`.
+    pub(crate) fn inverse(&mut self, slot: usize, which: usize) {
         let mut spec = std::mem::take(&mut self.spec);
         self.acc_spectrum(&mut spec);
         // DC and Nyquist are exactly real, so the inverse cannot report bad input; ignore the result
         // rather than panic on the audio thread.
         let _ = self.inv.process_with_scratch(&mut spec, &mut self.time, &mut self.scratch);
         self.spec = spec;
-        self.results[which].copy_from_slice(&self.time[self.n..]);
+        let k = slot * self.outputs.len() + which;
+        self.results[k].copy_from_slice(&self.time[self.n..]);
     }
 
-    /// Adds each output's result into the accumulator rings at `first_frame`.
-    pub(crate) fn deliver(&self, rings: &mut [TimeRing], first_frame: i64) {
-        for (terms, result) in self.outputs.iter().zip(&self.results) {
-            rings[terms.output].add(first_frame, result);
+    /// Adds each output's result of every IR slot in `mask` into that slot's accumulator rings at
+    /// `first_frame`.
+    pub(crate) fn deliver(&self, rings: &mut [Vec<TimeRing>; 2], first_frame: i64, mask: SlotMask) {
+        for (slot, slot_rings) in rings.iter_mut().enumerate() {
+            if mask & (1 << slot) == 0 {
+                continue;
+            }
+            for (w, terms) in self.outputs.iter().enumerate() {
+                slot_rings[terms.output].add(first_frame, self.result(slot, w));
+            }
         }
     }
 
-    /// All three steps at once for every output, then delivery.
-    pub(crate) fn run_sync(
-        &mut self,
-        inputs: &[TimeRing],
-        outputs: &mut [TimeRing],
-        now: i64,
-        emit: i64,
-        kernel: Kernel,
-    ) {
-        self.forward(inputs, now);
-        for which in 0..self.outputs.len() {
-            self.accumulate(which, kernel);
-            self.inverse(which);
+    /// All three steps at once for every output and every IR slot in `mask`, then delivery.
+    pub(crate) fn run_sync(&mut self, io: LevelIo<'_>, irs: [Option<&LevelIr>; 2], mask: SlotMask, kernel: Kernel) {
+        self.forward(io.inputs, io.now);
+        for (slot, ir) in irs.iter().enumerate() {
+            let Some(ir) = ir.filter(|_| mask & (1 << slot) != 0) else { continue };
+            for which in 0..self.outputs.len() {
+                self.accumulate(which, kernel, ir);
+                self.inverse(slot, which);
+            }
         }
-        self.deliver(outputs, emit + self.lead as i64);
+        self.deliver(io.outputs, io.emit + self.lead as i64, mask);
     }
 
-    /// Bytes held by the level's spectra and buffers.
+    /// Zeroes up to `budget` samples of the level's state from sweep position `pos`; see [`sweep`].
+    pub(crate) fn sweep(&mut self, pos: usize, budget: usize) -> Option<usize> {
+        let bufs = self.fdl.iter_mut().flat_map(|s| [&mut s.re[..], &mut s.im[..]]);
+        let next = sweep(bufs.chain(self.results.iter_mut().map(|r| &mut r[..])), pos, budget);
+        if next.is_none() {
+            self.newest = 0;
+        }
+        next
+    }
+
+    /// Bytes held by the level's delay line and buffers (the IR spectra are counted with the IR).
     pub(crate) fn memory_bytes(&self) -> usize {
-        let spectra: usize = self.fdl.iter().chain(&self.ir.spectra).map(Spectra::bytes).sum();
+        let spectra: usize = self.fdl.iter().map(Spectra::bytes).sum();
         let buffers = 4 * (self.time.len() + self.acc_re.len() + self.acc_im.len())
             + 8 * (self.spec.len() + self.scratch.len())
             + 4 * self.results.iter().map(Vec::len).sum::<usize>();

@@ -3,48 +3,61 @@
 
 use crate::ring::TimeRing;
 
-/// Direct-form FIR over the first `taps` of each path's IR.
+/// Direct-form FIR over the first `taps` of each path's IR. The taps themselves belong to the IR (see
+/// [`head_taps`]), so a swap can run two sets side by side.
 #[derive(Debug, Clone)]
 pub(crate) struct Head {
     taps: usize,
-    /// Per path: (input, output, reversed taps), so each output sample is a forward dot product.
-    paths: Vec<(usize, usize, Vec<f32>)>,
+    /// Per path: (input, output).
+    paths: Vec<(usize, usize)>,
     window: Vec<f32>,
     sum: Vec<f32>,
 }
 
+/// The head taps of each path, reversed so each output sample is a forward dot product: the first
+/// `taps` of the IR channel, zero-padded. Allocates.
+pub(crate) fn head_taps(taps: usize, channels: impl Iterator<Item = Vec<f32>>) -> Vec<Vec<f32>> {
+    channels
+        .map(|mut h| {
+            h.resize(taps, 0.0);
+            h.reverse();
+            h
+        })
+        .collect()
+}
+
 impl Head {
-    /// `paths` gives (input, output, taps) with exactly `taps` taps each. Allocates.
-    pub(crate) fn new(taps: usize, max_chunk: usize, paths: Vec<(usize, usize, Vec<f32>)>) -> Self {
-        let paths = paths
-            .into_iter()
-            .map(|(i, o, mut h)| {
-                debug_assert_eq!(h.len(), taps);
-                h.reverse();
-                (i, o, h)
-            })
-            .collect();
+    /// `paths` gives (input, output) per path. Allocates.
+    pub(crate) fn new(taps: usize, max_chunk: usize, paths: Vec<(usize, usize)>) -> Self {
         Self { taps, paths, window: vec![0.0; max_chunk + taps], sum: vec![0.0; max_chunk] }
     }
 
-    /// Adds the head's output for output frames `[frame, frame + len)` into `outputs[o][..len]`.
-    pub(crate) fn add(&mut self, inputs: &[TimeRing], frame: i64, outputs: &mut [&mut [f32]], at: usize, len: usize) {
+    /// Adds the head's output for output frames `[frame, frame + len)` into `outputs[o][..len]`, with
+    /// the reversed taps `h[path]` from [`head_taps`].
+    pub(crate) fn add(
+        &mut self,
+        inputs: &[TimeRing],
+        frame: i64,
+        outputs: &mut [Vec<f32>],
+        len: usize,
+        h: &[Vec<f32>],
+    ) {
         let taps = self.taps;
         let window = &mut self.window[..len + taps - 1];
-        for (input, output, h) in &self.paths {
+        for ((input, output), h) in self.paths.iter().zip(h) {
             inputs[*input].read(frame - (taps as i64 - 1), window);
             let sum = &mut self.sum[..len];
             for (j, s) in sum.iter_mut().enumerate() {
                 *s = dot(h, &window[j..j + taps]);
             }
-            for (y, s) in outputs[*output][at..at + len].iter_mut().zip(sum.iter()) {
+            for (y, s) in outputs[*output][..len].iter_mut().zip(sum.iter()) {
                 *y += s;
             }
         }
     }
 
     pub(crate) fn memory_bytes(&self) -> usize {
-        4 * (self.window.len() + self.sum.len() + self.paths.iter().map(|p| p.2.len()).sum::<usize>())
+        4 * (self.window.len() + self.sum.len())
     }
 
     /// Overwrites scratch with garbage (tests prove it does not matter).

@@ -27,6 +27,7 @@
 #![deny(unsafe_op_in_unsafe_fn)]
 
 pub mod analysis;
+pub mod control;
 pub mod cost;
 pub mod denormal;
 mod engine;
@@ -47,9 +48,10 @@ pub mod synth;
 mod threads;
 mod workers;
 
+pub use control::{Command, Control, Event, FadeState, PreparedIr, Refused, Status, SwapReport};
 pub use cost::{CostModel, MachineCosts, Shape};
 pub use engine::{Engine, EngineOptions, Monitor};
-pub use error::{EngineError, IrError, PlanError, ProcessError, RoutingError};
+pub use error::{ControlError, EngineError, IrError, PlanError, ProcessError, RoutingError};
 pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
 pub use plan::{Level, Plan, Schedule};

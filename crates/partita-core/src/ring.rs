@@ -42,6 +42,25 @@ impl TimeRing {
         sanitize_into(&mut tail[..first], a) + sanitize_into(&mut wrapped[..b.len()], b)
     }
 
+    /// Writes `src` at `[frame, frame + len)`.
+    pub(crate) fn write(&mut self, frame: i64, src: &[f32]) {
+        let (start, first, second) = self.runs(frame, src.len());
+        self.data[start..start + first].copy_from_slice(&src[..first]);
+        self.data[..second].copy_from_slice(&src[first..]);
+    }
+
+    /// Writes `len` zeros at `[frame, frame + len)`.
+    pub(crate) fn write_zeros(&mut self, frame: i64, len: usize) {
+        let (start, first, second) = self.runs(frame, len);
+        self.data[start..start + first].fill(0.0);
+        self.data[..second].fill(0.0);
+    }
+
+    /// All samples, in storage order.
+    pub(crate) fn samples_mut(&mut self) -> &mut [f32] {
+        &mut self.data
+    }
+
     /// Copies `[frame, frame + dst.len())` into `dst`.
     pub(crate) fn read(&self, frame: i64, dst: &mut [f32]) {
         let (start, first, second) = self.runs(frame, dst.len());

@@ -7,7 +7,7 @@
 use realfft::num_complex::Complex32;
 use rustfft::FftPlanner;
 
-use crate::fdl::LevelRunner;
+use crate::fdl::{LevelIo, LevelIr, LevelRunner, SlotMask};
 use crate::fourstep::FourStep;
 use crate::kernel::Kernel;
 use crate::ring::{prefaulted, TimeRing};
@@ -29,14 +29,14 @@ enum Step {
     Column { b: usize, inverse: bool },
     /// Split the packed forward spectrum of input `i`, bins `[lo, lo + CHUNK)`, into the delay line.
     Split { i: usize, lo: usize },
-    /// Clear the accumulator for output `w`.
+    /// Clear the accumulator.
     ClearAcc,
-    /// Multiply-accumulate partition `p`, bins `[lo, lo + MAC_CHUNK)` of output `w`.
-    Mac { w: usize, p: usize, lo: usize },
-    /// Inverse pre-pass of output `w`, packed bins `[lo, lo + CHUNK)`.
+    /// Multiply-accumulate partition `p`, bins `[lo, lo + MAC_CHUNK)` of output `w`, IR slot `slot`.
+    Mac { slot: usize, w: usize, p: usize, lo: usize },
+    /// Inverse pre-pass, packed bins `[lo, lo + CHUNK)`.
     Merge { lo: usize },
-    /// Unpack samples `[lo, lo + CHUNK)` of the kept half into output `w`'s result.
-    Unpack { w: usize, lo: usize },
+    /// Unpack samples `[lo, lo + CHUNK)` of the kept half into output `w`'s result for IR slot `slot`.
+    Unpack { slot: usize, w: usize, lo: usize },
     /// Add every output's result into the output rings.
     Deliver,
 }
@@ -45,8 +45,14 @@ enum Step {
 pub(crate) struct SlicedLevel {
     runner: LevelRunner,
     fs: FourStep,
-    steps: Vec<(Step, u64)>,
+    /// Each step with its cost and the IR slot it belongs to (`SHARED` for the input side).
+    steps: Vec<(Step, u64, u8)>,
+    /// Cost of a job for one IR slot.
     total_cost: u64,
+    /// Cost of the job running now (its IR slots).
+    job_cost_now: u64,
+    /// IR slots the running job computes.
+    mask: SlotMask,
     /// Packed complex samples (N) of the current input or output.
     packed: Vec<Complex32>,
     /// Four-step work matrix (N).
@@ -94,49 +100,56 @@ impl SlicedLevel {
         let outputs = runner.output_count();
         let parts = runner.partitions();
         let terms_max = (0..outputs).map(|w| runner.terms(w)).max().unwrap_or(1) as u64;
-        let mut steps = vec![(Step::Begin, 1)];
+        let mut steps = vec![(Step::Begin, 1, SHARED)];
         let chunks = |len: usize, step: usize| (0..len).step_by(step);
         for i in 0..inputs {
             for lo in chunks(2 * n, 2 * CHUNK) {
-                steps.push((Step::Copy { i, lo }, (2 * CHUNK).min(2 * n - lo) as u64));
+                steps.push((Step::Copy { i, lo }, (2 * CHUNK).min(2 * n - lo) as u64, SHARED));
             }
             for a in 0..fs.n1 {
-                steps.push((Step::Row { a, inverse: false }, fft_cost(fs.n2) + fs.n2 as u64));
+                steps.push((Step::Row { a, inverse: false }, fft_cost(fs.n2) + fs.n2 as u64, SHARED));
             }
             for b in 0..fs.n2 {
-                steps.push((Step::Column { b, inverse: false }, fft_cost(fs.n1)));
+                steps.push((Step::Column { b, inverse: false }, fft_cost(fs.n1), SHARED));
             }
             for lo in chunks(n + 1, CHUNK) {
-                steps.push((Step::Split { i, lo }, 4 * CHUNK.min(n + 1 - lo) as u64));
+                steps.push((Step::Split { i, lo }, 4 * CHUNK.min(n + 1 - lo) as u64, SHARED));
             }
         }
-        for w in 0..outputs {
-            steps.push((Step::ClearAcc, (n + 1) as u64 / 4 + 1));
-            for p in 0..parts {
-                for lo in chunks(n + 1, MAC_CHUNK) {
-                    steps.push((Step::Mac { w, p, lo }, 4 * terms_max * MAC_CHUNK.min(n + 1 - lo) as u64));
+        // The output side once per IR slot: both run while a swap crossfades.
+        for slot in 0..2 {
+            let tag = slot as u8;
+            for w in 0..outputs {
+                steps.push((Step::ClearAcc, (n + 1) as u64 / 4 + 1, tag));
+                for p in 0..parts {
+                    for lo in chunks(n + 1, MAC_CHUNK) {
+                        let cost = 4 * terms_max * MAC_CHUNK.min(n + 1 - lo) as u64;
+                        steps.push((Step::Mac { slot, w, p, lo }, cost, tag));
+                    }
+                }
+                for lo in chunks(n, CHUNK) {
+                    steps.push((Step::Merge { lo }, 4 * CHUNK.min(n - lo) as u64, tag));
+                }
+                for a in 0..fs.n1 {
+                    steps.push((Step::Row { a, inverse: true }, fft_cost(fs.n2) + fs.n2 as u64, tag));
+                }
+                for b in 0..fs.n2 {
+                    steps.push((Step::Column { b, inverse: true }, fft_cost(fs.n1), tag));
+                }
+                for lo in chunks(n, CHUNK) {
+                    steps.push((Step::Unpack { slot, w, lo }, CHUNK.min(n - lo) as u64, tag));
                 }
             }
-            for lo in chunks(n, CHUNK) {
-                steps.push((Step::Merge { lo }, 4 * CHUNK.min(n - lo) as u64));
-            }
-            for a in 0..fs.n1 {
-                steps.push((Step::Row { a, inverse: true }, fft_cost(fs.n2) + fs.n2 as u64));
-            }
-            for b in 0..fs.n2 {
-                steps.push((Step::Column { b, inverse: true }, fft_cost(fs.n1)));
-            }
-            for lo in chunks(n, CHUNK) {
-                steps.push((Step::Unpack { w, lo }, CHUNK.min(n - lo) as u64));
-            }
         }
-        steps.push((Step::Deliver, (outputs * n) as u64));
-        let total_cost = steps.iter().map(|s| s.1).sum();
+        steps.push((Step::Deliver, (outputs * n) as u64, SHARED));
+        let total_cost = job_cost(&steps, 1);
         Self {
             runner,
             fs,
             steps,
             total_cost,
+            job_cost_now: total_cost,
+            mask: 1,
             packed: prefaulted(n),
             work: prefaulted(n),
             done: prefaulted(n),
@@ -157,25 +170,20 @@ impl SlicedLevel {
         self.runner.due_at(block)
     }
 
-    /// Runs this boundary's share of the current job, and starts a new job when its input block has
-    /// just completed (`release`).
-    pub(crate) fn at_boundary(
-        &mut self,
-        inputs: &[TimeRing],
-        outputs: &mut [TimeRing],
-        now: i64,
-        emit: i64,
-        release: bool,
-    ) {
+    /// Runs this boundary's share of the current job, and starts a new job for the IR slots `mask` when
+    /// its input block has just completed (`release`). `irs` holds every slot a running job uses.
+    pub(crate) fn at_boundary(&mut self, io: LevelIo<'_>, irs: [Option<&LevelIr>; 2], release: Option<SlotMask>) {
         self.last_cost = 0;
-        if release {
+        if let Some(mask) = release {
             // The previous job finished at the boundary before this one (its last slice), by construction.
             self.running = true;
             self.cursor = 0;
             self.spent = 0;
             self.slice = 0;
-            self.job_now = now;
-            self.job_emit = emit;
+            self.job_now = io.now;
+            self.job_emit = io.emit;
+            self.mask = mask;
+            self.job_cost_now = job_cost(&self.steps, mask);
         }
         if !self.running {
             return;
@@ -183,12 +191,24 @@ impl SlicedLevel {
         let period = self.runner.period_blocks;
         self.slice += 1;
         // Even share: after slice c of S, (c / S) of the job's cost is done; the last slice finishes it.
-        let target = if self.slice >= period { self.total_cost } else { self.total_cost * self.slice / period };
+        let total = self.job_cost_now;
+        let target = if self.slice >= period { total } else { total * self.slice / period };
         while self.cursor < self.steps.len() && self.spent < target {
-            let (step, cost) = self.steps[self.cursor];
-            self.run_step(step, inputs, outputs);
+            let (step, cost, tag) = self.steps[self.cursor];
+            self.cursor += 1;
+            if tag != SHARED && self.mask & (1 << tag) == 0 {
+                continue;
+            }
+            self.run_step(step, io.inputs, io.outputs, irs);
             self.spent += cost;
             self.last_cost += cost;
+        }
+        // Skip trailing steps of slots this job does not compute.
+        while self.cursor < self.steps.len() {
+            let tag = self.steps[self.cursor].2;
+            if tag == SHARED || self.mask & (1 << tag) != 0 {
+                break;
+            }
             self.cursor += 1;
         }
         if self.cursor == self.steps.len() {
@@ -196,7 +216,13 @@ impl SlicedLevel {
         }
     }
 
-    fn run_step(&mut self, step: Step, inputs: &[TimeRing], outputs: &mut [TimeRing]) {
+    fn run_step(
+        &mut self,
+        step: Step,
+        inputs: &[TimeRing],
+        outputs: &mut [Vec<TimeRing>; 2],
+        irs: [Option<&LevelIr>; 2],
+    ) {
         let n = self.fs.n;
         match step {
             Step::Begin => self.runner.advance(),
@@ -219,9 +245,11 @@ impl SlicedLevel {
                 self.runner.store_spectrum_range(i, lo, &self.spec[lo..hi]);
             }
             Step::ClearAcc => self.runner.clear_acc(),
-            Step::Mac { w, p, lo } => {
+            Step::Mac { slot, w, p, lo } => {
                 let hi = (lo + MAC_CHUNK).min(n + 1);
-                self.runner.mac_range(w, self.kernel, p..p + 1, lo..hi);
+                if let Some(ir) = irs[slot] {
+                    self.runner.mac_range(w, self.kernel, p..p + 1, lo..hi, ir);
+                }
             }
             Step::Merge { lo } => {
                 let hi = (lo + CHUNK).min(n);
@@ -230,18 +258,18 @@ impl SlicedLevel {
                 // and the accumulated values there are exact zeros already (products of real bins).
                 self.fs.merge_inverse(re, im, lo..hi, &mut self.packed);
             }
-            Step::Unpack { w, lo } => {
+            Step::Unpack { slot, w, lo } => {
                 // Keep the second half of the 2N output: samples N..2N are packed pairs N/2..N (N even),
                 // or straddle a pair when N is odd.
                 let len = CHUNK.min(n - lo);
-                let result = self.runner.result_mut(w);
+                let result = self.runner.result_mut(slot, w);
                 for (j, r) in result[lo..lo + len].iter_mut().enumerate() {
                     let t = n + lo + j;
                     let c = self.done[t / 2];
                     *r = if t.is_multiple_of(2) { c.re } else { c.im };
                 }
             }
-            Step::Deliver => self.runner.deliver(outputs, self.job_emit + n as i64),
+            Step::Deliver => self.runner.deliver(outputs, self.job_emit + n as i64, self.mask),
         }
     }
 
@@ -249,6 +277,28 @@ impl SlicedLevel {
         self.runner.clear();
         self.running = false;
         self.cursor = 0;
+    }
+
+    /// Abandons the running job and zeroes up to `budget` samples of state; see [`crate::fdl::sweep`].
+    pub(crate) fn sweep(&mut self, pos: usize, budget: usize) -> Option<usize> {
+        self.running = false;
+        self.cursor = 0;
+        self.runner.sweep(pos, budget)
+    }
+
+    /// True while a running job still needs IR slot `slot`.
+    pub(crate) fn holds(&self, slot: usize) -> bool {
+        self.running && self.mask & (1 << slot) != 0
+    }
+
+    /// Frames between the next output to emit at a release and the first frame of that job's result.
+    pub(crate) fn lead(&self) -> usize {
+        self.runner.lead
+    }
+
+    /// Level block N.
+    pub(crate) fn n(&self) -> usize {
+        self.runner.n()
     }
 
     /// Overwrites scratch with garbage. While a job runs, its buffers carry state from slice to slice,
@@ -275,8 +325,16 @@ impl SlicedLevel {
         self.runner.period_blocks
     }
 
-    /// Cost units of one whole job.
+    /// Cost units of one whole job (one IR slot).
     pub(crate) fn job_cost(&self) -> u64 {
         self.total_cost
     }
+}
+
+/// Tag of steps every job runs, whatever its IR slots.
+const SHARED: u8 = u8::MAX;
+
+/// Cost of the steps a job for IR slots `mask` runs.
+fn job_cost(steps: &[(Step, u64, u8)], mask: SlotMask) -> u64 {
+    steps.iter().filter(|s| s.2 == SHARED || mask & (1 << s.2) != 0).map(|s| s.1).sum()
 }

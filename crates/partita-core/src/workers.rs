@@ -16,15 +16,14 @@
 //!   inverse FFT of abandoned jobs to catch up.
 
 use std::cell::UnsafeCell;
-use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicPtr, AtomicU64, AtomicU8, AtomicUsize, Ordering};
 use std::sync::Arc;
 use std::thread::{JoinHandle, Thread};
 use std::time::{Duration, Instant};
 
 use crate::denormal::DenormalGuard;
-use crate::fdl::LevelRunner;
+use crate::fdl::{LevelIo, LevelIr, LevelRunner, SlotMask};
 use crate::kernel::Kernel;
-use crate::ring::TimeRing;
 
 /// How long the audio thread waits for a late worker result before going on without it.
 pub const LATE_SPIN: Duration = Duration::from_micros(20);
@@ -63,6 +62,10 @@ struct Shared {
     output_slots: Box<[Slot]>,
     /// Per slot: the reset epoch of the job in it.
     slot_epoch: Box<[AtomicU64]>,
+    /// Per slot: the IR slots the job computes, and their spectra. The engine keeps every IR a job
+    /// points to alive until `completed` has passed the job.
+    slot_mask: Box<[AtomicU8]>,
+    slot_irs: Box<[[AtomicPtr<LevelIr>; 2]]>,
     released: AtomicU64,
     completed: AtomicU64,
     abandoned: AtomicU64,
@@ -92,8 +95,13 @@ pub(crate) struct WorkerLevel {
     outputs: Vec<usize>,
     next_job: u64,
     epoch: u64,
-    /// The released job whose result is due at the next release boundary, and where it lands.
-    outstanding: Option<(u64, i64)>,
+    /// The released job whose result is due at the next release boundary, where it lands, and its IR
+    /// slots.
+    outstanding: Option<(u64, i64, SlotMask)>,
+    /// Per IR slot: the last job released that uses it.
+    last_job_with: [Option<u64>; 2],
+    n: usize,
+    lead: usize,
     late: u64,
     refused: u64,
     memory: usize,
@@ -125,7 +133,7 @@ impl WorkerLevel {
     /// Moves `runner` onto a new worker thread. Allocates and spawns.
     pub(crate) fn spawn(runner: LevelRunner, setup: WorkerSetup) -> std::io::Result<Self> {
         let n = runner.n();
-        let memory = runner.memory_bytes() + 4 * SLOTS * n * (runner.inputs().len() + runner.output_count());
+        let memory = runner.memory_bytes() + 4 * SLOTS * n * (runner.inputs().len() + 2 * runner.output_count());
         let inputs = runner.inputs().to_vec();
         let outputs: Vec<usize> = (0..runner.output_count()).map(|w| runner.output_index(w)).collect();
         let slot = |len: usize| Slot(UnsafeCell::new(crate::ring::prefaulted::<f32>(len).into_boxed_slice()));
@@ -133,8 +141,12 @@ impl WorkerLevel {
             n,
             outputs: outputs.len(),
             input_slots: (0..SLOTS).map(|_| slot(inputs.len() * n)).collect(),
-            output_slots: (0..SLOTS).map(|_| slot(outputs.len() * n)).collect(),
+            output_slots: (0..SLOTS).map(|_| slot(2 * outputs.len() * n)).collect(),
             slot_epoch: (0..SLOTS).map(|_| AtomicU64::new(0)).collect(),
+            slot_mask: (0..SLOTS).map(|_| AtomicU8::new(0)).collect(),
+            slot_irs: (0..SLOTS)
+                .map(|_| [AtomicPtr::new(std::ptr::null_mut()), AtomicPtr::new(std::ptr::null_mut())])
+                .collect(),
             released: AtomicU64::new(0),
             completed: AtomicU64::new(0),
             abandoned: AtomicU64::new(0),
@@ -144,7 +156,8 @@ impl WorkerLevel {
             delay_micros: AtomicU64::new(0),
             priority: std::sync::atomic::AtomicI64::new(i64::MIN),
         });
-        let (period_blocks, phase_blocks, delay) = (runner.period_blocks, runner.phase_blocks, runner.delay);
+        let (period_blocks, phase_blocks, delay, lead) =
+            (runner.period_blocks, runner.phase_blocks, runner.delay, runner.lead);
         let worker_shared = Arc::clone(&shared);
         let windows: Vec<Vec<f32>> = (0..inputs.len()).map(|_| vec![0.0f32; 2 * n]).collect();
         let thread = std::thread::Builder::new()
@@ -168,6 +181,9 @@ impl WorkerLevel {
             next_job: 0,
             epoch: 0,
             outstanding: None,
+            last_job_with: [None, None],
+            n,
+            lead,
             late: 0,
             refused: 0,
             memory,
@@ -180,17 +196,25 @@ impl WorkerLevel {
     }
 
     /// At a release boundary: collect the job due now, then release the job for the block that just
-    /// completed. Returns (late results, refused releases) added by this call.
-    pub(crate) fn at_boundary(&mut self, inputs: &[TimeRing], outputs: &mut [TimeRing], now: i64, emit: i64) {
+    /// completed, computing the IR slots in `mask` with the spectra `irs`.
+    pub(crate) fn at_boundary(&mut self, io: LevelIo<'_>, irs: [Option<&LevelIr>; 2], mask: SlotMask) {
         let n = self.shared.n;
-        if let Some((job, at)) = self.outstanding.take() {
+        let (inputs, outputs, now, emit) = (io.inputs, io.outputs, io.now, io.emit);
+        if let Some((job, at, job_mask)) = self.outstanding.take() {
             if self.wait_completed(job) {
                 // SAFETY: `completed > job` was observed with acquire ordering, so the worker has
                 // finished writing this slot, and it will not touch it again before job + SLOTS is
                 // released, which only this thread does, later.
                 let result = unsafe { &*self.shared.output_slots[(job % SLOTS as u64) as usize].0.get() };
-                for (o, &out) in self.outputs.iter().enumerate() {
-                    outputs[out].add(at, &result[o * n..(o + 1) * n]);
+                let q = self.outputs.len();
+                for (slot, slot_rings) in outputs.iter_mut().enumerate() {
+                    if job_mask & (1 << slot) == 0 {
+                        continue;
+                    }
+                    for (o, &out) in self.outputs.iter().enumerate() {
+                        let k = slot * q + o;
+                        slot_rings[out].add(at, &result[k * n..(k + 1) * n]);
+                    }
                 }
             } else {
                 self.shared.abandoned.store(job + 1, Ordering::Release);
@@ -213,11 +237,24 @@ impl WorkerLevel {
                 inputs[input].read(start, &mut buf[i * n..(i + 1) * n]);
             }
             self.shared.slot_epoch[slot].store(self.epoch, Ordering::Relaxed);
+            let mut job_mask = 0;
+            for (s, ir) in irs.iter().enumerate() {
+                let ptr = match ir {
+                    Some(ir) if mask & (1 << s) != 0 => {
+                        job_mask |= 1 << s;
+                        self.last_job_with[s] = Some(job);
+                        std::ptr::from_ref(*ir).cast_mut()
+                    }
+                    _ => std::ptr::null_mut(),
+                };
+                self.shared.slot_irs[slot][s].store(ptr, Ordering::Relaxed);
+            }
+            self.shared.slot_mask[slot].store(job_mask, Ordering::Relaxed);
             self.shared.released.store(job + 1, Ordering::Release);
             self.waker.unpark();
             self.next_job += 1;
             // Due one period later; lands at the next frame to emit plus N.
-            self.outstanding = Some((job, emit + n as i64));
+            self.outstanding = Some((job, emit + n as i64, job_mask));
         } else {
             // The worker is SLOTS jobs behind: this block cannot enter its delay line.
             self.refused += 1;
@@ -244,9 +281,24 @@ impl WorkerLevel {
         false
     }
 
+    /// True while a released job that uses IR slot `slot` may still be running on the worker.
+    pub(crate) fn holds(&self, slot: usize) -> bool {
+        self.last_job_with[slot].is_some_and(|j| self.shared.completed.load(Ordering::Acquire) <= j)
+    }
+
+    /// Frames between the next output to emit at a release and the first frame of that job's result.
+    pub(crate) fn lead(&self) -> usize {
+        self.lead
+    }
+
+    /// Level block N.
+    pub(crate) fn n(&self) -> usize {
+        self.n
+    }
+
     /// Forgets in-flight work; the worker clears its delay line before its next job.
     pub(crate) fn reset(&mut self) {
-        if let Some((job, _)) = self.outstanding.take() {
+        if let Some((job, _, _)) = self.outstanding.take() {
             self.shared.abandoned.store(job + 1, Ordering::Release);
         }
         self.epoch += 1;
@@ -355,10 +407,22 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
             // SAFETY: the audio thread reads this slot only after `completed > job`, and has finished
             // reading the slot's previous job (job - SLOTS) before releasing this one.
             let out = unsafe { &mut *shared.output_slots[slot].0.get() };
-            for w in 0..shared.outputs {
-                runner.accumulate(w, setup.kernel);
-                runner.inverse(w);
-                out[w * n..(w + 1) * n].copy_from_slice(runner.result(w));
+            let mask = shared.slot_mask[slot].load(Ordering::Relaxed);
+            for s in 0..2 {
+                let ptr = shared.slot_irs[slot][s].load(Ordering::Relaxed);
+                if mask & (1 << s) == 0 || ptr.is_null() {
+                    continue;
+                }
+                // SAFETY: the engine published this pointer before `released` (release ordering,
+                // observed above with acquire) and keeps the IR it points to alive and unchanged
+                // until it has seen `completed > job`, which is published only after this use.
+                let ir = unsafe { &*ptr };
+                for w in 0..shared.outputs {
+                    runner.accumulate(w, setup.kernel, ir);
+                    runner.inverse(s, w);
+                    let k = s * shared.outputs + w;
+                    out[k * n..(k + 1) * n].copy_from_slice(runner.result(s, w));
+                }
             }
         }
         let extra = shared.delay_micros.load(Ordering::Relaxed);
