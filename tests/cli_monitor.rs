@@ -1,117 +1,13 @@
-//! `partita monitor` and `partita devices` against a private JACK server (dummy driver), one per test,
-//! run one at a time. Built only with `--features jack`; without a startable server the tests skip with
-//! a message, which is a failure when `CI` is set.
+//! `partita monitor` and `partita devices` against a private JACK server (dummy driver,
+//! `partita_testkit::jack_server`), one per test, run one at a time. Built only with `--features jack`;
+//! without a startable server the tests skip with a message, which is a failure when `CI` is set.
 #![cfg(feature = "jack")]
 
 use std::path::{Path, PathBuf};
-use std::process::{Child, Command, Output, Stdio};
-use std::sync::atomic::{AtomicUsize, Ordering};
-use std::sync::{Mutex, MutexGuard};
+use std::process::{Command, Output, Stdio};
 use std::time::{Duration, Instant};
 
-static SERIAL: Mutex<()> = Mutex::new(());
-static COUNTER: AtomicUsize = AtomicUsize::new(0);
-
-fn serial() -> MutexGuard<'static, ()> {
-    SERIAL.lock().unwrap_or_else(|e| e.into_inner())
-}
-
-/// `jackd -n NAME --no-realtime -d dummy -r 48000 -p PERIOD`, stopped by its pid on drop.
-struct JackServer {
-    name: String,
-    child: Option<Child>,
-    /// Killed with SIGKILL: its slot in JACK's server registry (/dev/shm, 8 slots) is left behind.
-    killed: bool,
-}
-
-impl JackServer {
-    fn start(period: u32) -> Option<Self> {
-        let name = format!("partita-cli-{}-{}", std::process::id(), COUNTER.fetch_add(1, Ordering::SeqCst));
-        Self::start_named(&name, period)
-    }
-
-    fn start_named(name: &str, period: u32) -> Option<Self> {
-        let name = name.to_string();
-        let child = Command::new("jackd")
-            .args(["-n", &name, "--no-realtime", "-d", "dummy", "-r", "48000", "-p", &period.to_string()])
-            .stdin(Stdio::null())
-            .stdout(Stdio::null())
-            .stderr(Stdio::null())
-            .spawn()
-            .ok()?;
-        let server = Self { name, child: Some(child), killed: false };
-        let deadline = Instant::now() + Duration::from_secs(10);
-        while Instant::now() < deadline {
-            let up = Command::new("jack_lsp")
-                .args(["-s", &server.name])
-                .env("JACK_NO_START_SERVER", "1")
-                .stdout(Stdio::null())
-                .stderr(Stdio::null())
-                .status()
-                .is_ok_and(|s| s.success());
-            if up {
-                return Some(server);
-            }
-            std::thread::sleep(Duration::from_millis(50));
-        }
-        None
-    }
-
-    fn kill_now(&mut self) {
-        if let Some(mut c) = self.child.take() {
-            let _ = c.kill();
-            let _ = c.wait();
-            self.killed = true;
-        }
-    }
-}
-
-/// Stops a server with SIGTERM (it then cleans its shared memory), SIGKILL if it lingers.
-fn terminate(mut c: Child) {
-    // SAFETY: kill(2) on our own child's pid with a valid signal number.
-    unsafe {
-        libc::kill(c.id() as libc::pid_t, libc::SIGTERM);
-    }
-    let deadline = Instant::now() + Duration::from_secs(2);
-    while Instant::now() < deadline {
-        if let Ok(Some(_)) = c.try_wait() {
-            return;
-        }
-        std::thread::sleep(Duration::from_millis(20));
-    }
-    let _ = c.kill();
-    let _ = c.wait();
-}
-
-impl Drop for JackServer {
-    fn drop(&mut self) {
-        if self.killed {
-            // A server of the same name takes over the dead one's registry slot; stopped cleanly, it
-            // frees it. Without this, killed servers fill JACK's 8 slots ("Too many servers").
-            if let Some(mut again) = Self::start_named(&self.name, 256) {
-                if let Some(c) = again.child.take() {
-                    terminate(c);
-                }
-            }
-            return;
-        }
-        if let Some(c) = self.child.take() {
-            terminate(c);
-        }
-    }
-}
-
-fn jack_or_skip(test: &str, period: u32) -> Option<JackServer> {
-    let server = JackServer::start(period);
-    if server.is_none() {
-        let msg = format!(
-            "{test}: SKIP: no JACK server could be started (is jackd installed? scripts/check installs jackd2)"
-        );
-        assert!(std::env::var_os("CI").is_none(), "{msg}; CI is set, so this is a failure");
-        eprintln!("{msg}");
-    }
-    server
-}
+use partita_testkit::jack_server::{jack_or_skip, serial};
 
 fn partita(server: &str) -> Command {
     let mut c = Command::new(env!("CARGO_BIN_EXE_partita"));

@@ -4,8 +4,13 @@
 //!   armed, either on the arming thread only ([`armed`]) or on every thread ([`armed_all_threads`]).
 //!   It works the same in debug and release builds.
 //! - [`ErrorBound`]: the DESIGN.md section 4 error bound (max error over reference peak, relative RMS).
+//! - [`jack_server`] (unix): a private JACK server per test (dummy driver), skipped with a message when
+//!   none can be started, a failure then under `CI`.
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
+
+#[cfg(unix)]
+pub mod jack_server;
 
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::cell::Cell;
