@@ -1,15 +1,18 @@
-//! Criterion micro-benchmarks of the hot loops: the complex multiply-accumulate kernels and one FFT level
-//! pass. `cargo bench --bench kernels`; under `cargo test --benches` criterion runs each bench once.
+//! Criterion micro-benchmarks of the hot loops: the complex multiply-accumulate kernels, the real FFT pair
+//! and one FFT level pass. `cargo bench --bench kernels`; under `cargo test --benches` criterion runs each
+//! bench once.
 //!
 //! - `mac/<kernel>/<bins>`: one `Kernel::mac` call over split re/im slices of 65, 513, 4097 and 32769 bins
 //!   (the bins of levels of 64, 512, 4096 and 32768 frames), cache-resident.
 //! - `mac-streamed/<kernel>/...`: one accumulation over 256 partitions of 16385 bins (64 MiB of spectra,
 //!   beyond any cache), once partition by partition over whole spectra (`contiguous`) and once in the
 //!   engine's order (256-bin tiles, all partitions per tile: `tiled-256`).
-//! - `level-pass/<frames>`: an engine with one uniform level of one partition processing one block: a
-//!   forward and an inverse real FFT of twice the block, a one-partition MAC and the ring copies. This
-//!   stands in for a bare realfft forward + inverse pair, because `realfft` is a dependency of
-//!   partita-core only (add it as a root dev-dependency to bench the FFT pair alone).
+//! - `fft-pair/<frames>`: a bare realfft forward + inverse pair of twice the block (what one level pays
+//!   per block; `MachineCosts::calibrate` times the same pair for the cost model), with preallocated
+//!   scratch, plus one copy of the window of twice the block in (the forward transform overwrites its input).
+//! - `level-pass/<frames>`: an engine with one uniform level of one partition processing one block: the
+//!   same FFT pair, a one-partition MAC and the ring copies, through the public API. The difference to
+//!   `fft-pair` is the MAC and the engine's work around the transforms.
 
 use std::hint::black_box;
 use std::time::Duration;
@@ -17,6 +20,8 @@ use std::time::Duration;
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use partita_core::synth::Noise;
 use partita_core::{Engine, ImpulseResponse, Kernel, Plan, Routing};
+use realfft::num_complex::Complex32;
+use realfft::RealFftPlanner;
 
 struct Spectra {
     acc_re: Vec<f32>,
@@ -120,6 +125,33 @@ fn mac_streamed(c: &mut Criterion) {
     group.finish();
 }
 
+fn fft_pair(c: &mut Criterion) {
+    let mut group = c.benchmark_group("fft-pair");
+    let mut planner = RealFftPlanner::<f32>::new();
+    for frames in [64usize, 512, 4096, 32768] {
+        let fwd = planner.plan_fft_forward(2 * frames);
+        let inv = planner.plan_fft_inverse(2 * frames);
+        let window = Noise::new(5).vec(2 * frames);
+        let mut time = fwd.make_input_vec();
+        let mut spec = fwd.make_output_vec();
+        let mut scratch = vec![Complex32::default(); fwd.get_scratch_len().max(inv.get_scratch_len())];
+        group.throughput(Throughput::Elements(frames as u64));
+        group.bench_with_input(BenchmarkId::from_parameter(frames), &frames, |b, _| {
+            b.iter(|| {
+                time.copy_from_slice(black_box(&window));
+                fwd.process_with_scratch(&mut time, &mut spec, &mut scratch).expect("forward FFT lengths");
+                // The inverse rejects complex DC and Nyquist bins; the engine zeroes them before it too.
+                spec[0].im = 0.0;
+                let last = spec.len() - 1;
+                spec[last].im = 0.0;
+                inv.process_with_scratch(&mut spec, &mut time, &mut scratch).expect("inverse FFT lengths");
+                black_box(&time);
+            })
+        });
+    }
+    group.finish();
+}
+
 fn level_pass(c: &mut Criterion) {
     let mut group = c.benchmark_group("level-pass");
     for frames in [64usize, 512, 4096, 32768] {
@@ -142,6 +174,6 @@ fn level_pass(c: &mut Criterion) {
 criterion_group! {
     name = kernels;
     config = Criterion::default().warm_up_time(Duration::from_millis(500)).measurement_time(Duration::from_secs(2));
-    targets = mac, mac_streamed, level_pass
+    targets = mac, mac_streamed, fft_pair, level_pass
 }
 criterion_main!(kernels);

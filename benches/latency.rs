@@ -5,9 +5,11 @@
 //! `zero-workers`, `zero-sliced`), an engine runs a paced simulation: host calls of one block issued on
 //! the real deadline grid (`partita::measure::run`, sleeping between calls as a sound card would wake the
 //! audio thread, so caches go cold as they do live). Per cell it records the algorithmic latency, the mean
-//! load over every thread (callback thread CPU plus the CPU of any other thread of the process, i.e. the
-//! engine's workers), callback thread-CPU time p50 / p99 / p99.9 / max in % of the deadline (wall-clock
-//! maximum beside it), late worker results, and the calibrated cost model's prediction.
+//! load over every thread the engine uses (`RunStats::mean_load_pct`: the audio thread's CPU inside
+//! `process()` plus the worker threads' job CPU, thread clocks), callback thread-CPU time p50 / p99 / p99.9
+//! / max in % of the deadline (wall-clock maximum beside it), late worker results, and the calibrated cost
+//! model's prediction. The CSV also carries the whole process's CPU over the run (`process_load_pct`, an
+//! upper bound that includes the bench's own pacing).
 //!
 //! Plans are made by the optimal planner with the calibrated cost model of this machine
 //! (`partita::calibration::machine_costs`), for the stereo shape. Cells that cannot run in real time on one
@@ -29,7 +31,7 @@ mod common;
 use std::time::Instant;
 
 use common::{load_average, machine_line, out_dir, quick_mode, stereo_ir, Csv, Table, RATE_HZ};
-use partita::measure::{process_cpu_seconds, run, thread_cpu_seconds, RunStats};
+use partita::measure::{run, RunStats};
 use partita_core::{CostModel, Engine, ImpulseResponse, Kernel, Plan, PlanMode, Planner, Routing, Schedule, Shape};
 use plotters::prelude::*;
 
@@ -52,18 +54,6 @@ fn planner(mode: &str, block_frames: usize) -> Planner {
     }
 }
 
-/// Late worker results as the engine counts them.
-fn late_results(engine: &Engine) -> u64 {
-    engine.monitor().late_results()
-}
-
-struct Measured {
-    stats: RunStats,
-    /// Every thread: the callbacks' thread CPU plus the CPU of the process's other threads, % of one core.
-    load_all_pct: f64,
-    late: u64,
-}
-
 struct Cell {
     ir_seconds: f64,
     ir_frames: usize,
@@ -72,28 +62,22 @@ struct Cell {
     latency_frames: usize,
     predicted_pct: f64,
     plan: Plan,
-    result: Result<Measured, String>,
+    result: Result<RunStats, String>,
     /// System load average when the cell finished (other processes on the machine).
     sys_load: f64,
 }
 
-fn measure(engine: &mut Engine, seconds: f64, block: usize) -> Measured {
-    let late_before = late_results(engine);
-    let (p0, t0) = (process_cpu_seconds(), thread_cpu_seconds());
-    let stats = run(engine, RATE_HZ, seconds, block, true);
-    let (p1, t1) = (process_cpu_seconds(), thread_cpu_seconds());
-    // Process CPU minus this thread's CPU is what other threads (the engine's workers) used; this thread's
-    // own CPU outside the callbacks (pacing, clocks) is not engine work and is left out.
-    let others = ((p1 - p0) - (t1 - t0)).max(0.0);
-    let load_all_pct = stats.mean_load_pct + 100.0 * others / stats.audio_seconds;
-    Measured { stats, load_all_pct, late: late_results(engine) - late_before }
+/// Paced run. Its `mean_load_pct` is the load of every thread the engine uses (the callbacks' thread CPU
+/// plus the workers' job CPU); do not add "process CPU minus this thread's" on top, which would count the
+/// workers twice.
+fn measure(engine: &mut Engine, seconds: f64, block: usize) -> RunStats {
+    run(engine, RATE_HZ, seconds, block, true)
 }
 
-/// Unpaced run of `seconds` of audio: back-to-back load of every thread, % of one core. Warms the engine up.
+/// Unpaced run of `seconds` of audio: back-to-back load of the whole process (an upper bound on the
+/// engine's), % of one core. Warms the engine up.
 fn probe_load_pct(engine: &mut Engine, seconds: f64, block: usize) -> f64 {
-    let p0 = process_cpu_seconds();
-    let stats = run(engine, RATE_HZ, seconds, block, false);
-    100.0 * (process_cpu_seconds() - p0) / stats.audio_seconds
+    run(engine, RATE_HZ, seconds, block, false).process_load_pct
 }
 
 /// A comma-separated list from the environment (e.g. `PARTITA_LATENCY_IRS=10 PARTITA_LATENCY_BLOCKS=64` runs
@@ -166,7 +150,7 @@ fn main() {
                 match &result {
                     Ok(m) => eprintln!(
                         "  {ir_seconds:>4} s  B {block:>4}  {mode:<16} load {:6.2}%  max {:6.1}%  late {}",
-                        m.load_all_pct, m.stats.max_pct, m.late
+                        m.mean_load_pct, m.max_pct, m.late
                     ),
                     Err(why) => eprintln!("  {ir_seconds:>4} s  B {block:>4}  {mode:<16} {why}"),
                 }
@@ -223,17 +207,16 @@ fn print_table(cells: &[Cell]) {
         ];
         match &c.result {
             Ok(m) => {
-                let s = &m.stats;
                 row.extend([
-                    format!("{:.2}", m.load_all_pct),
-                    format!("{:.2}", s.p50_pct),
-                    format!("{:.2}", s.p99_pct),
-                    format!("{:.2}", s.p999_pct),
-                    format!("{:.1}", s.max_pct),
-                    format!("{:.1}", s.max_wall_pct),
+                    format!("{:.2}", m.mean_load_pct),
+                    format!("{:.2}", m.p50_pct),
+                    format!("{:.2}", m.p99_pct),
+                    format!("{:.2}", m.p999_pct),
+                    format!("{:.1}", m.max_pct),
+                    format!("{:.1}", m.max_wall_pct),
                     m.late.to_string(),
                     format!("{:.2}", c.predicted_pct),
-                    format!("{:.2}", m.load_all_pct / c.predicted_pct),
+                    format!("{:.2}", m.mean_load_pct / c.predicted_pct),
                     format!("{:.1}", c.sys_load),
                 ]);
             }
@@ -290,23 +273,22 @@ fn print_s1(cells: &[Cell]) {
             t.row(row);
             continue;
         };
-        let s = &m.stats;
         let verdict = |ok: bool| if ok { "ok" } else { "MISSED" };
         // DESIGN.md section 5: T1-T3 are the targets of the worker schedule, T4 of the single-thread
         // (sliced) schedule; uniform and all-sync plans are the baselines they improve on.
         let targets = match c.mode {
             "optimal-workers" | "zero-workers" => format!(
                 "T1 load <= 1%: {}, T2 p99.9 <= 3%: {}, max <= 15%: {}, T3 late = 0: {}",
-                verdict(m.load_all_pct <= 1.0),
-                verdict(s.p999_pct <= 3.0),
-                verdict(s.max_pct <= 15.0),
+                verdict(m.mean_load_pct <= 1.0),
+                verdict(m.p999_pct <= 3.0),
+                verdict(m.max_pct <= 15.0),
                 verdict(m.late == 0)
             ),
             "optimal-sliced" | "zero-sliced" => {
                 format!(
                     "T4 load <= 1.5%: {}, max <= 10%: {}",
-                    verdict(m.load_all_pct <= 1.5),
-                    verdict(s.max_pct <= 10.0)
+                    verdict(m.mean_load_pct <= 1.5),
+                    verdict(m.max_pct <= 10.0)
                 )
             }
             _ => "baseline (no target)".to_string(),
@@ -314,11 +296,11 @@ fn print_s1(cells: &[Cell]) {
         t.row(vec![
             format!("`{}`", c.mode),
             plan_summary(&c.plan),
-            format!("{:.1}", s.audio_seconds),
-            format!("{:.2}", m.load_all_pct),
-            format!("{:.2}", s.p999_pct),
-            format!("{:.1}", s.max_pct),
-            format!("{:.1}", s.max_wall_pct),
+            format!("{:.1}", m.audio_seconds),
+            format!("{:.2}", m.mean_load_pct),
+            format!("{:.2}", m.p999_pct),
+            format!("{:.1}", m.max_pct),
+            format!("{:.1}", m.max_wall_pct),
             m.late.to_string(),
             targets,
         ]);
@@ -342,24 +324,25 @@ fn write_csv(cells: &[Cell]) -> std::path::PathBuf {
             "max_pct",
             "late",
             "model_ratio",
+            "process_load_pct",
         ],
     );
     // Skipped cells have no measurement and are left out (the Markdown table lists them with the reason).
     for c in cells {
         if let Ok(m) = &c.result {
-            let s = &m.stats;
             csv.row(&[
                 c.ir_frames.to_string(),
                 c.block_frames.to_string(),
                 c.mode.to_string(),
                 c.latency_frames.to_string(),
-                format!("{:.4}", m.load_all_pct),
-                format!("{:.4}", s.p50_pct),
-                format!("{:.4}", s.p99_pct),
-                format!("{:.4}", s.p999_pct),
-                format!("{:.4}", s.max_pct),
+                format!("{:.4}", m.mean_load_pct),
+                format!("{:.4}", m.p50_pct),
+                format!("{:.4}", m.p99_pct),
+                format!("{:.4}", m.p999_pct),
+                format!("{:.4}", m.max_pct),
                 m.late.to_string(),
-                format!("{:.4}", m.load_all_pct / c.predicted_pct),
+                format!("{:.4}", m.mean_load_pct / c.predicted_pct),
+                format!("{:.4}", m.process_load_pct),
             ]);
         }
     }
@@ -420,7 +403,7 @@ fn plot(
                 .filter(|c| c.ir_seconds == ir_seconds && c.mode == *mode)
                 .filter_map(|c| c.result.as_ref().ok().map(|m| (c, m)))
                 .map(|(c, m)| {
-                    let v = if row == 0 { m.load_all_pct } else { m.stats.max_pct };
+                    let v = if row == 0 { m.mean_load_pct } else { m.max_pct };
                     (log2(c.block_frames), v.clamp(0.011, 999.0))
                 })
                 .collect();

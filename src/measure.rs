@@ -1,8 +1,13 @@
 //! Measuring an engine on this machine: CPU clocks and paced callback runs.
 //!
-//! Mean load is the CPU time of the whole process (every thread the engine uses) over the audio time
-//! processed, in % of one core. Callback time is one `process()` call, on the calling thread's CPU clock
-//! (judged against the deadline, DESIGN.md section 4) with the wall-clock time beside it.
+//! Mean load (DESIGN.md section 4) is the CPU time of the threads the engine uses, on their thread CPU
+//! clocks, over the audio time processed, in % of one core: the calling (audio) thread's clock inside
+//! `process()` plus the engine's worker threads' clocks during their jobs
+//! ([`Monitor::worker_cpu_seconds`](partita_core::Monitor::worker_cpu_seconds)). Beside it, the whole
+//! process's CPU clock over the same run: an upper bound, since it also counts the runner's own pacing and
+//! bookkeeping, the workers' wake-ups and parking, and any other thread of the process. Callback time is
+//! one `process()` call, on the calling thread's CPU clock (judged against the deadline) with the
+//! wall-clock time beside it.
 
 use std::time::{Duration, Instant};
 
@@ -37,8 +42,13 @@ pub struct RunStats {
     pub audio_seconds: f64,
     /// Callbacks issued.
     pub callbacks: usize,
-    /// Process CPU time over audio time, % of one core.
+    /// Mean load: the engine's thread CPU time (the audio thread inside `process()` plus the worker
+    /// threads' jobs) over audio time, % of one core.
     pub mean_load_pct: f64,
+    /// The whole process's CPU time over the same run and audio time, % of one core. An upper bound on
+    /// [`mean_load_pct`](Self::mean_load_pct): it also counts this runner's pacing loop, worker wake-ups and
+    /// parking, and unrelated threads of the process.
+    pub process_load_pct: f64,
     /// Callback thread-CPU time percentiles and maximum, % of the callback deadline.
     pub p50_pct: f64,
     /// 99th percentile.
@@ -60,6 +70,10 @@ pub struct RunStats {
 /// thread, so caches go cold as they do live); otherwise calls run back to back. Allocates its buffers
 /// before the run.
 ///
+/// Worker CPU is credited when a job completes and published by `process()`, so a job still running when
+/// the run ends is left out of `mean_load_pct` and one that began just before the run is counted whole;
+/// over a run of many worker periods this is small.
+///
 /// # Panics
 /// When `host_frames` exceeds the engine's `max_host_frames`.
 pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: usize, paced: bool) -> RunStats {
@@ -72,10 +86,10 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
     let mut cpu = Vec::with_capacity(calls);
     let mut wall = Vec::with_capacity(calls);
     let mut ins: Vec<&[f32]> = Vec::with_capacity(inputs.len());
-    let process_start = process_cpu_seconds();
     let monitor = engine.monitor();
     let workers_start = monitor.worker_cpu_seconds();
     let late_start = monitor.late_results();
+    let process_start = process_cpu_seconds();
     let start = Instant::now();
     for k in 0..calls {
         if paced {
@@ -98,10 +112,10 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
         cpu.push(c1 - c0);
         wall.push(w);
     }
-    let _ = process_cpu_seconds() - process_start;
-    // Audio-thread time in the callbacks plus every worker thread's time: the pacing loop's own
-    // sleeping and bookkeeping is not the engine's load.
-    let callback_cpu: f64 = cpu.iter().sum::<f64>() + (monitor.worker_cpu_seconds() - workers_start);
+    let process_cpu = process_cpu_seconds() - process_start;
+    // Audio-thread time in the callbacks plus the worker threads' job time: the pacing loop's own
+    // sleeping and bookkeeping is not the engine's load (it is in `process_cpu`).
+    let engine_cpu: f64 = cpu.iter().sum::<f64>() + (monitor.worker_cpu_seconds() - workers_start);
     let audio_seconds = (calls * host_frames) as f64 / f64::from(sample_rate_hz);
     let deadline = period.as_secs_f64();
     let pct = |v: f64| 100.0 * v / deadline;
@@ -111,7 +125,8 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
     RunStats {
         audio_seconds,
         callbacks: calls,
-        mean_load_pct: 100.0 * callback_cpu / audio_seconds,
+        mean_load_pct: 100.0 * engine_cpu / audio_seconds,
+        process_load_pct: 100.0 * process_cpu / audio_seconds,
         p50_pct: pct(q(&cpu, 0.5)),
         p99_pct: pct(q(&cpu, 0.99)),
         p999_pct: pct(q(&cpu, 0.999)),

@@ -227,8 +227,8 @@ pub fn run(args: DemoArgs) -> CmdResult {
             model.load_pct(&live, shape, rate_f)
         );
         println!(
-            "measured     {:.3}% of one core (thread CPU over {:.1} s of audio, calls back to back); worst callback \
-             {:.1}% of the {:.3} ms deadline, p99.9 {:.1}%{}",
+            "measured     {:.3}% of one core (audio-thread and worker CPU over {:.1} s of audio, calls back to \
+             back); worst callback {:.1}% of the {:.3} ms deadline, p99.9 {:.1}%{}",
             stats.mean_load_pct,
             stats.audio_seconds,
             stats.max_pct,

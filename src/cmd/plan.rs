@@ -215,6 +215,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         }
         if let Some(m) = measured {
             out["measured_load_pct"] = json!(m.mean_load_pct);
+            out["measured_process_load_pct"] = json!(m.process_load_pct);
             out["worst_callback_pct"] = json!(m.max_pct);
             out["worst_callback_wall_pct"] = json!(m.max_wall_pct);
             out["p50_callback_pct"] = json!(m.p50_pct);
@@ -265,9 +266,11 @@ pub fn run(args: PlanArgs) -> CmdResult {
     }
     if let Some(m) = measured {
         println!(
-            "measured     {:.3}% of one core over {:.1} s of audio, paced; worst callback {:.1}% of the {:.3} ms \
-             deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%, {} late results",
+            "measured     {:.3}% of one core (audio-thread and worker CPU; whole process {:.3}%) over {:.1} s of \
+             audio, paced; worst callback {:.1}% of the {:.3} ms deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%, \
+             {} late results",
             m.mean_load_pct,
+            m.process_load_pct,
             m.audio_seconds,
             m.max_pct,
             ms(plan.block_frames),

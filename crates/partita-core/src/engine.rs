@@ -732,16 +732,15 @@ impl Engine {
     fn advance_reset(&mut self, emit: i64) {
         match self.reset {
             None => {}
-            Some(ResetPhase::FadeOut) => {
-                if self.mix.env.idle() {
-                    for level in &mut self.levels {
-                        if let LevelSlot::Workers(w) = level {
-                            w.reset();
-                        }
+            Some(ResetPhase::FadeOut) if self.mix.env.idle() => {
+                for level in &mut self.levels {
+                    if let LevelSlot::Workers(w) = level {
+                        w.reset();
                     }
-                    self.reset = Some(ResetPhase::Sweep { item: 0, pos: 0 });
                 }
+                self.reset = Some(ResetPhase::Sweep { item: 0, pos: 0 });
             }
+            Some(ResetPhase::FadeOut) => {}
             Some(ResetPhase::Sweep { item, pos }) => {
                 // One item (or a slice of one) per boundary.
                 self.reset = match self.sweep_item(item, pos, SWEEP_SAMPLES) {
