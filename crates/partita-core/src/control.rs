@@ -138,7 +138,6 @@ impl Layout {
 }
 
 /// An IR transformed for one engine: the spectra of every level and the head taps.
-#[derive(Debug)]
 pub(crate) struct IrSet {
     /// Per engine level slot (level x routing group), in the engine's order.
     pub(crate) levels: Vec<LevelIr>,
@@ -146,6 +145,12 @@ pub(crate) struct IrSet {
     pub(crate) head: Vec<Vec<f32>>,
     pub(crate) frames: usize,
     pub(crate) id: u64,
+}
+
+impl std::fmt::Debug for IrSet {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("IrSet").field("id", &self.id).field("frames", &self.frames).finish_non_exhaustive()
+    }
 }
 
 impl IrSet {
@@ -156,9 +161,18 @@ impl IrSet {
 
 /// An impulse response prepared for one engine ([`Control::prepare`]): partitioned, transformed and
 /// allocated, ready to be adopted by the audio thread with a pointer hand-off.
-#[derive(Debug)]
 pub struct PreparedIr {
     pub(crate) set: Box<IrSet>,
+}
+
+impl std::fmt::Debug for PreparedIr {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("PreparedIr")
+            .field("id", &self.set.id)
+            .field("frames", &self.set.frames)
+            .field("memory_bytes", &self.memory_bytes())
+            .finish()
+    }
 }
 
 impl PreparedIr {

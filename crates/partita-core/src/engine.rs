@@ -130,43 +130,49 @@ impl EngineOptions {
     }
 }
 
-/// A per-sample linear ramp towards a target.
+/// A per-sample linear ramp towards a target. Each value is computed from the start point (not by
+/// accumulating steps), so a long ramp carries no rounding drift.
 #[derive(Debug, Clone, Copy)]
 struct Ramp {
     value: f32,
+    from: f32,
     target: f32,
-    step: f32,
-    left: u32,
+    k: u32,
+    frames: u32,
 }
 
 impl Ramp {
     fn new(value: f32) -> Self {
-        Self { value, target: value, step: 0.0, left: 0 }
+        Self { value, from: value, target: value, k: 0, frames: 0 }
     }
 
     /// Ramps to `target` over `frames` samples (at once for 0).
     fn set(&mut self, target: f32, frames: u32) {
+        self.from = self.value;
         self.target = target;
+        self.k = 0;
+        self.frames = frames;
         if frames == 0 {
             self.value = target;
-            self.left = 0;
-        } else {
-            self.step = (target - self.value) / frames as f32;
-            self.left = frames;
         }
     }
 
-    /// The value for the next sample.
+    /// The value for the next sample: `from + (target - from) (k + 1) / frames` for the k-th sample
+    /// after `set`, `target` from the last one on.
     fn next(&mut self) -> f32 {
-        if self.left > 0 {
-            self.left -= 1;
-            self.value = if self.left == 0 { self.target } else { self.value + self.step };
+        if self.k < self.frames {
+            self.k += 1;
+            self.value = if self.k == self.frames {
+                self.target
+            } else {
+                self.from + (self.target - self.from) * (self.k as f32 / self.frames as f32)
+            };
         }
         self.value
     }
 
     fn idle(&self) -> bool {
-        self.left == 0
+        self.k >= self.frames
     }
 }
 
@@ -556,6 +562,9 @@ impl Engine {
         let sweeping = matches!(self.reset, Some(ResetPhase::Sweep { .. }));
         // Gains for this chunk, shared by every output.
         let m = &mut self.mix;
+        if m.pd_x.idle() {
+            m.pd_from = m.pd_to; // the last pre-delay crossfade ended in an earlier chunk
+        }
         let [g_wet, g_dry, g_by, g_w, g_pd] = &mut self.gains;
         for j in 0..len {
             let out = m.out.next();
@@ -564,9 +573,6 @@ impl Engine {
             g_by[j] = m.bypass.next();
             g_pd[j] = m.pd_x.next();
             g_w[j] = self.swap.as_ref().map_or(0.0, |s| s.weight(emit + j as i64));
-        }
-        if m.pd_x.idle() {
-            m.pd_from = m.pd_to;
         }
         let (pd_from, pd_to) = (m.pd_from, m.pd_to);
         let mut peak = 0.0f32;

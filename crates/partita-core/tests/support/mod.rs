@@ -114,3 +114,64 @@ pub fn check_against_oracle(
     }
     worst
 }
+
+/// The documented crossfade weight of the new IR at output frame `n` (partita_core::control): a raised
+/// cosine from `fade_start` (0) to `fade_end` (1).
+pub fn swap_weight(r: &partita_core::SwapReport, n: usize) -> f64 {
+    let n = n as u64;
+    if n < r.fade_start {
+        0.0
+    } else if n >= r.fade_end {
+        1.0
+    } else {
+        let t = (n - r.fade_start) as f64 / (r.fade_end - r.fade_start) as f64;
+        0.5 - 0.5 * (std::f64::consts::PI * t).cos()
+    }
+}
+
+/// What a stream with swaps should sound like: `outs[id]` is the oracle output (one channel) of the IR
+/// with that id; `reports` are the swaps in order, starting from IR `first`. Between fades the IR heard
+/// alone, during one `(1 - w) old + w new`.
+pub fn swapped_output(outs: &[&[f64]], first: u64, reports: &[partita_core::SwapReport], total: usize) -> Vec<f64> {
+    let mut current = first as usize;
+    let mut next = 0usize;
+    (0..total)
+        .map(|n| {
+            while next < reports.len() && (n as u64) >= reports[next].fade_end {
+                assert_eq!(reports[next].old_id as usize, current, "swaps chain old -> new");
+                current = reports[next].new_id as usize;
+                next += 1;
+            }
+            match reports.get(next).filter(|r| n as u64 >= r.fade_start) {
+                Some(r) => {
+                    let w = swap_weight(r, n);
+                    (1.0 - w) * outs[current][n] + w * outs[r.new_id as usize][n]
+                }
+                None => outs[current][n],
+            }
+        })
+        .collect()
+}
+
+/// A gain as the engine ramps it: each change at output frame `frame` ramps linearly from the value
+/// then to the target over `ramp` frames (sample k after the change carries (k + 1) / ramp of the way).
+pub fn ramped_gain(initial: f64, changes: &[(u64, f64)], ramp: usize, total: usize) -> Vec<f64> {
+    let (mut value, mut from, mut target, mut k, mut frames) = (initial, initial, initial, 0usize, 0usize);
+    let mut next = 0;
+    (0..total)
+        .map(|n| {
+            while next < changes.len() && changes[next].0 as usize == n {
+                from = value;
+                target = changes[next].1;
+                k = 0;
+                frames = ramp;
+                next += 1;
+            }
+            if k < frames {
+                k += 1;
+                value = if k == frames { target } else { from + (target - from) * k as f64 / frames as f64 };
+            }
+            value
+        })
+        .collect()
+}
