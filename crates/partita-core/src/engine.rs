@@ -192,6 +192,21 @@ struct Mix {
     ramp_frames: u32,
 }
 
+impl Mix {
+    /// Every parameter at its default and at rest: wet 1, dry 0, output 0 dB, no bypass, no pre-delay.
+    fn is_identity(&self) -> bool {
+        let at = |r: &Ramp, v: f32| r.idle() && r.value == v;
+        at(&self.wet, 1.0)
+            && at(&self.dry, 0.0)
+            && at(&self.out, 1.0)
+            && at(&self.bypass, 0.0)
+            && at(&self.env, 1.0)
+            && self.pd_x.idle()
+            && self.pd_to == 0
+            && self.pd_from == 0
+    }
+}
+
 /// A swap in progress, in this engine's frame coordinates (`emit` frames).
 #[derive(Debug, Clone, Copy)]
 struct SwapRun {
@@ -550,6 +565,30 @@ impl Engine {
             Some(s) => (s.old, Some(s.new)),
             None => (self.active, None),
         };
+        if second.is_none() && self.reset.is_none() && self.predelay.is_empty() && self.mix.is_identity() {
+            // Default parameters, no swap, no pre-delay line to feed: the output is the wet signal itself.
+            let mut peak = 0.0f32;
+            for (o, y) in outputs.iter_mut().enumerate() {
+                let y = &mut y[at..at + len];
+                self.outputs[first][o].take(emit, y);
+                peak = peak.max(y.iter().fold(0.0f32, |m, v| m.max(v.abs())));
+            }
+            if let (Some(head), Some(ir)) = (&mut self.head, &self.irs[first]) {
+                let wet = &mut self.wet[first];
+                for w in wet.iter_mut() {
+                    w[..len].fill(0.0);
+                }
+                head.add(&self.inputs, emit, wet, len, &ir.head);
+                peak = 0.0;
+                for (y, w) in outputs.iter_mut().zip(wet.iter()) {
+                    for (v, h) in y[at..at + len].iter_mut().zip(&w[..len]) {
+                        *v += h;
+                        peak = peak.max(v.abs());
+                    }
+                }
+            }
+            return peak;
+        }
         for slot in std::iter::once(first).chain(second) {
             let wet = &mut self.wet[slot];
             for (ring, w) in self.outputs[slot].iter_mut().zip(wet.iter_mut()) {
