@@ -108,6 +108,15 @@ impl Layout {
 
     /// Checks `ir` against the engine and transforms it. Allocates; runs on the caller's thread.
     pub(crate) fn prepare(&self, ir: &ImpulseResponse) -> Result<IrSet, ControlError> {
+        self.prepare_with(ir, &mut RealFftPlanner::<f32>::new())
+    }
+
+    /// [`prepare`](Self::prepare) with the caller's FFT planner (whose twiddle tables it reuses).
+    pub(crate) fn prepare_with(
+        &self,
+        ir: &ImpulseResponse,
+        planner: &mut RealFftPlanner<f32>,
+    ) -> Result<IrSet, ControlError> {
         if ir.channels() != self.ir_channels {
             return Err(ControlError::RoutingMismatch { expected: self.ir_channels, got: ir.channels() });
         }
@@ -117,13 +126,12 @@ impl Layout {
         if ir.frames() > self.covered_frames {
             return Err(ControlError::IrTooLong { ir_frames: ir.frames(), max_frames: self.covered_frames });
         }
-        let mut planner = RealFftPlanner::<f32>::new();
         let levels = self
             .levels
             .iter()
             .map(|spec| {
                 let taps: Vec<&[f32]> = spec.channels.iter().map(|&c| ir.channel(c)).collect();
-                LevelIr::new(&taps, spec.n, spec.partitions, spec.offset, &mut planner)
+                LevelIr::new(&taps, spec.n, spec.partitions, spec.offset, planner)
             })
             .collect();
         let head = head_taps(

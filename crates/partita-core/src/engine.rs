@@ -400,9 +400,9 @@ impl Engine {
             specs,
             options.max_predelay_frames,
         ));
-        let first = layout.prepare(ir).map_err(EngineError::Control)?;
-
+        // One planner for the IR and the levels, so each FFT size's twiddles are computed once.
         let mut planner = RealFftPlanner::<f32>::new();
+        let first = layout.prepare_with(ir, &mut planner).map_err(EngineError::Control)?;
         let mut complex_planner = rustfft::FftPlanner::<f32>::new();
         let mut levels = Vec::new();
         let mut input_reach = latency + plan.head_frames + b;
