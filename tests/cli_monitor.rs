@@ -178,3 +178,59 @@ fn devices_lists_the_jack_devices() {
     assert_eq!(devices.len(), 2, "{v}");
     assert_eq!(devices[0]["input_configs"][0]["buffer_frames"]["min"], 128, "{v}");
 }
+
+/// `--alt-ir` with SIGHUP: the running engine swaps to the other IR through its control API (prepared
+/// off the audio thread, crossfaded), and the summary counts the swap as requested and completed.
+#[test]
+fn sighup_swaps_to_the_alternative_ir() {
+    use std::io::{BufRead, BufReader};
+    let _serial = serial();
+    let Some(server) = jack_or_skip("sighup_swaps_to_the_alternative_ir", 256) else { return };
+    let dir = scratch("swap");
+    let ir = write_ir(&dir, 0.5);
+    let alt = dir.join("alt.wav");
+    let chans: Vec<Vec<f32>> = (0..2)
+        .map(|c| partita_core::synth::decaying_noise(12_000, 6_000.0, 40 + c).iter().map(|v| 0.2 * v).collect())
+        .collect();
+    partita_io::write_wav_atomic(&alt, &chans, 48_000, partita_io::SampleFormat::F32, partita_io::Dither::OFF).unwrap();
+    let json = dir.join("summary.json");
+    let mut child = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--block", "256", "--seconds", "6", "--swap-fade-ms", "100", "--ir"])
+        .arg(&ir)
+        .arg("--alt-ir")
+        .arg(&alt)
+        .arg("--summary-json")
+        .arg(&json)
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // The signal handlers are in place once the engine line is printed.
+    let mut err = BufReader::new(child.stderr.take().unwrap());
+    let mut log = String::new();
+    let mut line = String::new();
+    while err.read_line(&mut line).unwrap_or(0) > 0 {
+        log.push_str(&line);
+        if line.starts_with("engine:") {
+            assert!(line.contains("SIGHUP swaps"), "{line}");
+            break;
+        }
+        line.clear();
+    }
+    std::thread::sleep(Duration::from_millis(1000));
+    // SAFETY: kill(2) on our own child's pid with a valid signal number.
+    unsafe {
+        libc::kill(child.id() as libc::pid_t, libc::SIGHUP);
+    }
+    let mut rest = String::new();
+    let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+    log.push_str(&rest);
+    let status = child.wait().unwrap();
+    eprintln!("{log}");
+    assert!(status.success(), "exit {status:?}: {log}");
+    let v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(v["swaps_requested"], 1, "{v}");
+    assert_eq!(v["swaps_completed"], 1, "{v}");
+    assert_eq!(v["nonfinite_samples"], 0, "{v}");
+    assert!(log.contains("IR swaps     1 requested, 1 completed"), "{log}");
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -5,7 +5,8 @@
 //! one-line status a few times a second when stderr is a terminal, and a summary at the end (also as
 //! JSON with `--summary-json`). Ends after `--seconds`, on Ctrl-C (or SIGTERM), or with an error and a
 //! non-zero exit when the device or server goes away. SIGUSR1 toggles bypass, SIGUSR2 ends a safety
-//! mute.
+//! mute, and SIGHUP swaps between `--ir` and `--alt-ir` with a crossfade (the engine's control API:
+//! the other IR is prepared off the audio thread and handed over by pointer).
 
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
@@ -29,6 +30,12 @@ pub struct MonitorArgs {
     /// Impulse response (WAV): 1 channel mono, 2 stereo, 4 true stereo (or --layout).
     #[arg(long, value_name = "IR.wav")]
     ir: PathBuf,
+    /// A second impulse response with the same channel layout; SIGHUP swaps between the two while running.
+    #[arg(long, value_name = "IR.wav")]
+    alt_ir: Option<PathBuf>,
+    /// Crossfade of a swap (SIGHUP), ms.
+    #[arg(long, value_name = "MS", default_value_t = 500.0)]
+    swap_fade_ms: f64,
     /// Audio host: `alsa`, or `jack` in a build with the `jack` feature [default: the platform's].
     #[arg(long, value_name = "NAME")]
     host: Option<String>,
@@ -107,19 +114,21 @@ pub struct MonitorArgs {
 static STOP: AtomicBool = AtomicBool::new(false);
 static TOGGLE_BYPASS: AtomicBool = AtomicBool::new(false);
 static UNMUTE: AtomicBool = AtomicBool::new(false);
+static SWAP: AtomicBool = AtomicBool::new(false);
 
 extern "C" fn on_signal(signal: libc::c_int) {
     // Only stores to atomics: async-signal-safe.
     match signal {
         libc::SIGUSR1 => TOGGLE_BYPASS.store(true, Ordering::SeqCst),
         libc::SIGUSR2 => UNMUTE.store(true, Ordering::SeqCst),
+        libc::SIGHUP => SWAP.store(true, Ordering::SeqCst),
         _ => STOP.store(true, Ordering::SeqCst),
     }
 }
 
 fn install_signal_handlers() {
     let handler = on_signal as extern "C" fn(libc::c_int) as libc::sighandler_t;
-    for sig in [libc::SIGINT, libc::SIGTERM, libc::SIGUSR1, libc::SIGUSR2] {
+    for sig in [libc::SIGINT, libc::SIGTERM, libc::SIGUSR1, libc::SIGUSR2, libc::SIGHUP] {
         // SAFETY: the handler only stores to static atomics, which is async-signal-safe.
         unsafe {
             libc::signal(sig, handler);
@@ -185,19 +194,42 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     let devices = LiveDevices::open(&device_options, inputs, outputs)?;
     let rate = devices.sample_rate_hz();
 
-    let prepared = load_ir(
-        &args.ir,
-        &IrOptions {
-            sample_rate_hz: Some(rate),
-            normalize: args.normalize,
-            layout: Some(layout),
-            ..IrOptions::default()
-        },
-    )?;
-    if prepared.source.sample_rate_hz != rate {
-        eprintln!("note: the IR was resampled from {} Hz to the device's {rate} Hz", prepared.source.sample_rate_hz);
+    if !(args.swap_fade_ms.is_finite() && args.swap_fade_ms >= 0.0) {
+        return Err(format!("--swap-fade-ms must be a non-negative number, got {}", args.swap_fade_ms).into());
     }
-    let ir = prepared.ir;
+    let ir_options = IrOptions {
+        sample_rate_hz: Some(rate),
+        normalize: args.normalize,
+        layout: Some(layout),
+        ..IrOptions::default()
+    };
+    let load = |path: &PathBuf| -> Result<partita_core::ImpulseResponse, Box<dyn std::error::Error>> {
+        let prepared = load_ir(path, &ir_options)?;
+        if prepared.source.sample_rate_hz != rate {
+            eprintln!(
+                "note: {} was resampled from {} Hz to the device's {rate} Hz",
+                path.display(),
+                prepared.source.sample_rate_hz
+            );
+        }
+        Ok(prepared.ir)
+    };
+    let ir = load(&args.ir)?;
+    let alt = args.alt_ir.as_ref().map(&load).transpose()?;
+    if let Some(alt) = &alt {
+        if alt.channels() != ir.channels() {
+            return Err(format!(
+                "{}: {} channels, but {} has {}; the two IRs need the same layout",
+                args.alt_ir.as_ref().map_or(String::new(), |p| p.display().to_string()),
+                alt.channels(),
+                args.ir.display(),
+                ir.channels()
+            )
+            .into());
+        }
+    }
+    // Plan for the longer of the two, so either fits the engine's levels.
+    let plan_frames = ir.frames().max(alt.as_ref().map_or(0, |a| a.frames()));
     let map = routing.resolve(ir.channels())?;
     let planner = Planner::new()
         .block_frames(args.block.unwrap_or(64))
@@ -210,14 +242,19 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             return Err(format!("--latency-ms must be a non-negative number, got {ms}").into());
         }
         let budget = (ms * f64::from(rate) / 1000.0).floor() as usize;
-        let (plan, why) = planner.plan_for_latency(budget, ir.frames())?;
+        let (plan, why) = planner.plan_for_latency(budget, plan_frames)?;
         eprintln!("plan: {why}");
         plan
     } else {
-        planner.plan(ir.frames())?
+        planner.plan(plan_frames)?
     };
     let options = EngineOptions { realtime_workers: args.realtime_workers, ..EngineOptions::new(4096) };
-    let engine = Engine::with_options(&plan, &ir, routing, options)?;
+    let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
+    let mut control = engine.control().ok_or("the engine's control handle was taken")?;
+    // The IR not playing, prepared and ready to hand over; it comes back when swapped out.
+    let mut spare = alt.as_ref().map(|a| control.prepare(a)).transpose()?;
+    let fade_frames = control.frames_for_ms(args.swap_fade_ms);
+    let mut swaps = 0u64;
 
     let stream_options = StreamOptions {
         side: if args.engine_in_output { EngineSide::Playback } else { EngineSide::Capture },
@@ -254,7 +291,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     );
     eprintln!(
         "engine: {routing:?}, block {}{}, {} level(s) ({}), latency {} frames ({:.3} ms); wet {} dry {}; ceiling {} dBFS \
-         ({}); Ctrl-C stops, SIGUSR1 toggles bypass, SIGUSR2 unmutes",
+         ({}); Ctrl-C stops, SIGUSR1 toggles bypass, SIGUSR2 unmutes{}",
         plan.block_frames,
         if plan.zero_latency { " zero-latency" } else { "" },
         plan.levels.len(),
@@ -265,6 +302,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         args.dry,
         args.ceiling_db,
         if args.hard_clip { "hard clip" } else { "soft clip" },
+        if spare.is_some() { ", SIGHUP swaps to the other IR" } else { "" },
     );
 
     let terminal = std::io::stderr().is_terminal();
@@ -288,6 +326,21 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         if UNMUTE.swap(false, Ordering::SeqCst) {
             live.handle().unmute();
         }
+        for event in control.poll() {
+            if let partita_core::Event::Retired { ir, .. } = event {
+                spare = Some(ir); // freed (or kept) here, never on the audio thread
+            }
+        }
+        if SWAP.swap(false, Ordering::SeqCst) {
+            match spare.take() {
+                Some(next) => match control.swap(next, fade_frames) {
+                    Ok(()) => swaps += 1,
+                    Err(refused) => spare = Some(refused.0),
+                },
+                None if args.alt_ir.is_none() => eprintln!("\nSIGHUP: no --alt-ir to swap to"),
+                None => eprintln!("\nSIGHUP: a swap is still in progress; try again when it has finished"),
+            }
+        }
         if terminal && last_status.elapsed() >= Duration::from_millis(250) {
             last_status = Instant::now();
             let peaks = live.handle().take_peaks();
@@ -307,6 +360,14 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             if live.handle().bypass() {
                 line.push_str(" | BYPASS");
             }
+            let cs = control.status();
+            if args.alt_ir.is_some() {
+                let which = if cs.ir_id == 1 { "alt-ir" } else { "ir" };
+                line.push_str(&format!(" | {which}"));
+                if cs.fade_state != partita_core::FadeState::Steady {
+                    line.push_str(&format!(" ({:?})", cs.fade_state));
+                }
+            }
             let mut err = std::io::stderr().lock();
             let _ = write!(err, "\r\x1b[2K{line}");
             let _ = err.flush();
@@ -316,9 +377,15 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         eprintln!();
     }
     let stats = live.stop();
+    let swaps_completed = control.status().swaps_completed;
     print_summary(&stats, fault.as_ref().map(ToString::to_string).as_deref());
+    if args.alt_ir.is_some() {
+        eprintln!("  IR swaps     {swaps} requested, {swaps_completed} completed");
+    }
     if let Some(path) = &args.summary_json {
-        let j = summary_json(&stats, &info, &plan, fault.as_ref().map(ToString::to_string));
+        let mut j = summary_json(&stats, &info, &plan, fault.as_ref().map(ToString::to_string));
+        j["swaps_requested"] = json!(swaps);
+        j["swaps_completed"] = json!(swaps_completed);
         std::fs::write(path, serde_json::to_string_pretty(&j)? + "\n")
             .map_err(|e| format!("{}: cannot write the summary: {e}", path.display()))?;
     }
