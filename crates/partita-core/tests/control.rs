@@ -68,14 +68,7 @@ fn stream_with(
     mut at_call: impl FnMut(usize, usize),
 ) -> Vec<Vec<f32>> {
     let mut sizes = random_sizes(seed, engine.max_host_frames());
-    let padded: Vec<Vec<f32>> = input
-        .iter()
-        .map(|x| {
-            let mut v = x.clone();
-            v.resize(total, 0.0);
-            v
-        })
-        .collect();
+    let padded = padded(input, total);
     let mut out = vec![vec![0.0f32; total]; engine.outputs()];
     let (mut at, mut k) = (0, 0);
     while at < total {

@@ -8,33 +8,19 @@
 mod support;
 
 use partita_core::synth::Noise;
-use partita_core::{Command, Engine, EngineOptions, Event, FadeState, Lateness, Plan, Planner, Routing, Schedule};
+use partita_core::{Command, Engine, EngineOptions, Event, FadeState, Lateness, Routing, Schedule};
 use partita_testkit::{armed_all_threads, TrapAllocator};
 use support::*;
 
 #[global_allocator]
 static ALLOC: TrapAllocator = TrapAllocator;
 
-fn plan(schedule: Schedule, zero: bool, ir_frames: usize, block: usize) -> Plan {
-    let plan = Planner::new()
-        .block_frames(block)
-        .zero_latency(zero)
-        .schedule(schedule)
-        .min_sliced_frames(0)
-        .plan(ir_frames)
-        .unwrap();
-    if schedule != Schedule::Sync {
-        assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{:?}", plan.levels);
-    }
-    plan
-}
-
 #[test]
 fn every_control_operation_on_the_audio_path_is_heap_free() {
     for (schedule, zero) in [(Schedule::Sync, false), (Schedule::Workers, true), (Schedule::Sliced, false)] {
         let (routing, channels) = (Routing::TrueStereo, 4);
         let a = random_ir(channels, 8000, 1);
-        let plan = plan(schedule, zero, 8000, 32);
+        let plan = scheduled_plan(schedule, zero, 8000, 32);
         let options = EngineOptions { lateness: Lateness::Wait, max_predelay_frames: 1000, ..EngineOptions::new(256) };
         let mut engine = Engine::with_options(&plan, &a, routing, options).unwrap();
         let mut control = engine.control().unwrap();

@@ -9,7 +9,7 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::Arc;
 
 use partita_core::synth::Noise;
-use partita_core::{Command, Engine, EngineOptions, Event, Lateness, Plan, Planner, Routing, Schedule, SwapReport};
+use partita_core::{Command, Engine, EngineOptions, Event, Lateness, Routing, Schedule, SwapReport};
 use partita_testkit::{armed, ErrorBound, TrapAllocator};
 use support::*;
 
@@ -18,18 +18,6 @@ static ALLOC: TrapAllocator = TrapAllocator;
 
 /// Frames of a parameter ramp: control::PARAM_RAMP_SECONDS at 48 kHz.
 const RAMP: usize = 480;
-
-fn plan(schedule: Schedule, zero: bool, ir_frames: usize, block: usize) -> Plan {
-    let plan = Planner::new()
-        .block_frames(block)
-        .zero_latency(zero)
-        .schedule(schedule)
-        .min_sliced_frames(0)
-        .plan(ir_frames)
-        .unwrap();
-    assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{:?}", plan.levels);
-    plan
-}
 
 #[test]
 fn stress_thousands_of_swaps_from_another_thread_match_the_oracle_crossfade() {
@@ -40,7 +28,7 @@ fn stress_thousands_of_swaps_from_another_thread_match_the_oracle_crossfade() {
 
 fn stress(schedule: Schedule, zero: bool) {
     let frames = 300;
-    let plan = plan(schedule, zero, frames, 16);
+    let plan = scheduled_plan(schedule, zero, frames, 16);
     let a = random_ir(2, frames, 11);
     let b = random_ir(2, frames, 12);
     let options = EngineOptions { lateness: Lateness::Wait, ..EngineOptions::new(64) };
@@ -62,14 +50,7 @@ fn stress(schedule: Schedule, zero: bool) {
         }
         v
     };
-    let padded: Vec<Vec<f32>> = input
-        .iter()
-        .map(|x| {
-            let mut v = x.clone();
-            v.resize(total, 0.0);
-            v
-        })
-        .collect();
+    let padded = padded(&input, total);
     let mut output = vec![vec![0.0f32; total]; 2];
 
     // Lock-step: control loop l waits for call l to have been made, call c for loop c to have run, so

@@ -37,14 +37,7 @@ pub fn stream(
     total: usize,
     mut next_size: impl FnMut() -> usize,
 ) -> Vec<Vec<f32>> {
-    let padded: Vec<Vec<f32>> = input
-        .iter()
-        .map(|x| {
-            let mut v = x.clone();
-            v.resize(total, 0.0);
-            v
-        })
-        .collect();
+    let padded = padded(input, total);
     let mut out = vec![vec![0.0f32; total]; engine.outputs()];
     let mut at = 0;
     while at < total {
@@ -55,6 +48,34 @@ pub fn stream(
         at += n;
     }
     out
+}
+
+/// `input` zero-padded (or cut) to `total` frames per channel.
+pub fn padded(input: &[Vec<f32>], total: usize) -> Vec<Vec<f32>> {
+    input
+        .iter()
+        .map(|x| {
+            let mut v = x.clone();
+            v.resize(total, 0.0);
+            v
+        })
+        .collect()
+}
+
+/// A plan from the optimal planner with `schedule` for the levels above the block (sliced levels
+/// allowed at any size), checked to use that schedule.
+pub fn scheduled_plan(schedule: partita_core::Schedule, zero: bool, ir_frames: usize, block: usize) -> Plan {
+    let plan = partita_core::Planner::new()
+        .block_frames(block)
+        .zero_latency(zero)
+        .schedule(schedule)
+        .min_sliced_frames(0)
+        .plan(ir_frames)
+        .unwrap();
+    if schedule != partita_core::Schedule::Sync {
+        assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{:?}", plan.levels);
+    }
+    plan
 }
 
 /// Random host-call sizes in 1..=max, seeded.
