@@ -275,8 +275,10 @@ pub struct Engine {
     inputs: Vec<TimeRing>,
     /// Accumulator rings per IR slot.
     outputs: [Vec<TimeRing>; 2],
-    /// The input again, for the dry signal and bypass (kept while a reset zeroes `inputs`).
+    /// The input again, for the dry signal and bypass (kept while a reset zeroes `inputs`). Written only
+    /// while `dry_live`: seeded from `inputs` when a command first needs it.
     dry: Vec<TimeRing>,
+    dry_live: bool,
     /// Wet signal history per output, for the pre-delay (empty without one).
     predelay: Vec<TimeRing>,
     head: Option<Head>,
@@ -458,6 +460,7 @@ impl Engine {
             inputs: (0..routes.inputs).map(|_| TimeRing::new(input_reach)).collect(),
             outputs: [ring_set(), ring_set()],
             dry: (0..routes.inputs).map(|_| TimeRing::new(latency + b + 1)).collect(),
+            dry_live: false,
             predelay: if pd > 0 { (0..q).map(|_| TimeRing::new(pd + b + 1)).collect() } else { Vec::new() },
             routes,
             head,
@@ -529,11 +532,15 @@ impl Engine {
             let sweeping = matches!(self.reset, Some(ResetPhase::Sweep { .. }));
             for ((ring, dry), x) in self.inputs.iter_mut().zip(&mut self.dry).zip(inputs) {
                 let x = &x[done..done + len];
-                bad += dry.write_sanitized(self.now, x);
-                if sweeping {
-                    ring.write_zeros(self.now, len);
+                if self.dry_live {
+                    bad += dry.write_sanitized(self.now, x);
+                    if sweeping {
+                        ring.write_zeros(self.now, len);
+                    } else {
+                        ring.write_sanitized(self.now, x);
+                    }
                 } else {
-                    ring.write_sanitized(self.now, x);
+                    bad += ring.write_sanitized(self.now, x);
                 }
             }
             peak = peak.max(self.render(outputs, done, len));
@@ -548,7 +555,7 @@ impl Engine {
         if bad > 0 {
             self.counters.nonfinite_inputs.fetch_add(bad, Ordering::Relaxed);
         }
-        if peak > 0.0 {
+        if peak > 0.0 && peak.to_bits() > self.status.peak_bits.load(Ordering::Relaxed) {
             self.status.peak_bits.fetch_max(peak.to_bits(), Ordering::AcqRel);
         }
         self.publish_worker_counters();
@@ -571,7 +578,7 @@ impl Engine {
             for (o, y) in outputs.iter_mut().enumerate() {
                 let y = &mut y[at..at + len];
                 self.outputs[first][o].take(emit, y);
-                peak = peak.max(y.iter().fold(0.0f32, |m, v| m.max(v.abs())));
+                peak = peak.max(peak_abs(y));
             }
             if let (Some(head), Some(ir)) = (&mut self.head, &self.irs[first]) {
                 let wet = &mut self.wet[first];
@@ -581,10 +588,11 @@ impl Engine {
                 head.add(&self.inputs, emit, wet, len, &ir.head);
                 peak = 0.0;
                 for (y, w) in outputs.iter_mut().zip(wet.iter()) {
-                    for (v, h) in y[at..at + len].iter_mut().zip(&w[..len]) {
+                    let y = &mut y[at..at + len];
+                    for (v, h) in y.iter_mut().zip(&w[..len]) {
                         *v += h;
-                        peak = peak.max(v.abs());
                     }
+                    peak = peak.max(peak_abs(y));
                 }
             }
             return peak;
@@ -760,6 +768,32 @@ impl Engine {
             }
             self.report(command, emit);
         }
+        self.update_dry_live();
+    }
+
+    /// Keeps the dry ring written while the dry signal, bypass or a reset may read it; when it starts,
+    /// seeds it with the history it needs from the input rings (at most two blocks, no allocation).
+    fn update_dry_live(&mut self) {
+        let m = &self.mix;
+        let needed = m.dry.target != 0.0
+            || m.dry.value != 0.0
+            || m.bypass.target != 0.0
+            || m.bypass.value != 0.0
+            || self.reset.is_some();
+        if needed && !self.dry_live {
+            let b = self.plan.block_frames;
+            let from = self.now - (self.latency + b) as i64;
+            for (ring, dry) in self.inputs.iter().zip(&mut self.dry) {
+                let mut at = from;
+                while at < self.now {
+                    let n = ((self.now - at) as usize).min(b);
+                    ring.read(at, &mut self.tap_a[..n]);
+                    dry.write(at, &self.tap_a[..n]);
+                    at += n as i64;
+                }
+            }
+        }
+        self.dry_live = needed;
     }
 
     /// Sends an `Applied` event if the queue has room beyond what retired IRs may need.
@@ -1091,6 +1125,12 @@ enum SweepStep {
     Done,
     /// Every item is zero.
     End,
+}
+
+/// The largest |v| of `y` (NaN counts as the largest), by the bit patterns so it vectorizes: the
+/// magnitudes of non-negative IEEE 754 floats order like their bits as unsigned integers.
+fn peak_abs(y: &[f32]) -> f32 {
+    f32::from_bits(y.iter().fold(0u32, |m, v| m.max(v.to_bits() & 0x7fff_ffff)))
 }
 
 /// `v` when finite, else `fallback` (a NaN gain from the control side must not reach the output).
