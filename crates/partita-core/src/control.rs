@@ -444,8 +444,9 @@ impl Control {
     }
 
     /// Prepares `ir` for this engine: checks it and computes every level's spectra. Allocates; run it
-    /// off the audio thread. Cost: one forward FFT per partition and IR channel (about 10 ms for a 10 s
-    /// stereo IR on a 2020s desktop core; `partita` benches measure it).
+    /// off the audio thread. Cost: one forward FFT per partition and IR channel; for a 10 s stereo IR
+    /// planned at block 64, 7.1-7.3 ms (median) on a 2-vCPU Intel Xeon VM (`cargo bench --bench
+    /// control`, BENCHMARKS.md).
     ///
     /// # Errors
     /// [`ControlError`] when the IR has a different channel count (a different routing), another sample
