@@ -11,7 +11,7 @@
 //!    per level into FFT planning (twiddles), allocation with prefault, and the partition FFTs, so a miss
 //!    can be attributed.
 //! 2. **Crossfade**: a paced run (one host call of one block per deadline on the real grid, sleeping in
-//!    between, as `partita::measure::run` does) of a few seconds steady, then a swap with a 1 s fade,
+//!    between, through `partita::measure::drive`) of a few seconds steady, then a swap with a 1 s fade,
 //!    repeated (A -> B -> A ...: the retired IR is swapped in again, so nothing is freed or prepared during
 //!    the run). Every callback's thread-CPU and wall time is recorded with the engine's `fade_state` after
 //!    it (one block boundary per call, so that state is what the call's boundary computed): `Pending` and
@@ -35,7 +35,9 @@
 mod common;
 
 use std::hint::black_box;
-use std::time::{Duration, Instant};
+use std::time::Instant;
+
+use partita::measure;
 
 use common::{load_average, machine_line, median, out_dir, quick_mode, stereo_ir, Csv, Table, RATE_HZ};
 use partita_core::synth::Noise;
@@ -461,17 +463,9 @@ fn bench_crossfade(
     let mut control = engine.control().expect("first call");
     let mut next_ir: Option<PreparedIr> = Some(control.prepare(ir_b).expect("an IR of the engine's shape"));
     let monitor = engine.monitor();
-    let mut noise = Noise::new(0xC0FFEE);
-    let inputs: Vec<Vec<f32>> = (0..2).map(|_| noise.vec(BLOCK_FRAMES * 64)).collect();
-    let mut outputs = vec![vec![0.0f32; BLOCK_FRAMES]; 2];
     // Warm up unpaced (as the latency bench's probe does): 0.2 s of audio, not recorded.
     let warm_calls = (0.2 * f64::from(RATE_HZ)) as usize / BLOCK_FRAMES;
-    for k in 0..warm_calls {
-        let at = (k % 63) * BLOCK_FRAMES;
-        let ins: Vec<&[f32]> = inputs.iter().map(|x| &x[at..at + BLOCK_FRAMES]).collect();
-        let mut outs: Vec<&mut [f32]> = outputs.iter_mut().map(|y| &mut y[..]).collect();
-        engine.process(&ins, &mut outs).expect("buffers of the engine's shape");
-    }
+    measure::drive(&mut engine, RATE_HZ, warm_calls, BLOCK_FRAMES, false, |_, _, _| true);
 
     let steady_calls = (setup.steady_seconds * f64::from(RATE_HZ)) as usize / BLOCK_FRAMES;
     let timeout_calls = (setup.swap_timeout_seconds * f64::from(RATE_HZ)) as usize / BLOCK_FRAMES;
@@ -480,38 +474,19 @@ fn bench_crossfade(
     let mut reports = Vec::new();
     let mut settle_calls = Vec::new();
     let (mut nonfinite_outputs, mut behind) = (0, 0);
-    let period = Duration::from_secs_f64(BLOCK_FRAMES as f64 / f64::from(RATE_HZ));
-    let mut ins: Vec<&[f32]> = Vec::with_capacity(2);
     // Bench state: calls left in the current steady stretch, or the call index where the swap was queued.
     let mut steady_left = steady_calls;
     let mut swapped_at: Option<usize> = None;
     let mut swaps_done = 0u64;
     let mut worker_before = monitor.worker_cpu_seconds();
-    let start = Instant::now();
-    for k in 0..max_calls {
-        let due = start + period * k as u32;
-        let now = Instant::now();
-        if due > now {
-            std::thread::sleep(due - now);
-        } else if now - due > period {
-            behind += 1;
-        }
-        let at = (k % 63) * BLOCK_FRAMES;
-        ins.clear();
-        ins.extend(inputs.iter().map(|x| &x[at..at + BLOCK_FRAMES]));
-        let mut outs: Vec<&mut [f32]> = outputs.iter_mut().map(|y| &mut y[..]).collect();
-        let t0 = Instant::now();
-        let c0 = thread_cpu_seconds();
-        let result = engine.process(&ins, &mut outs);
-        let c1 = thread_cpu_seconds();
-        let wall = t0.elapsed().as_secs_f64();
-        debug_assert!(result.is_ok());
+    measure::drive(&mut engine, RATE_HZ, max_calls, BLOCK_FRAMES, true, |k, t, outputs| {
         // Bookkeeping off the timed region (the control thread's work, done here between callbacks).
+        behind += usize::from(t.behind);
         let status = control.status();
         let worker_now = monitor.worker_cpu_seconds();
         calls.push(Call {
-            cpu_s: c1 - c0,
-            wall_s: wall,
+            cpu_s: t.cpu_s,
+            wall_s: t.wall_s,
             worker_s: worker_now - worker_before,
             state: status.fade_state,
             late: status.late_results,
@@ -524,7 +499,7 @@ fn bench_crossfade(
             None if steady_left > 0 => steady_left -= 1,
             None => {
                 if settle_calls.len() >= setup.swaps {
-                    break;
+                    return false;
                 }
                 let ir = next_ir.take().expect("an IR to swap in");
                 if let Err(refused) = control.swap(ir, setup.fade_frames) {
@@ -552,11 +527,12 @@ fn bench_crossfade(
                         setup.swap_timeout_seconds
                     );
                     settle_calls.push(None);
-                    break;
+                    return false;
                 }
             }
         }
-    }
+        true
+    });
     let c = &calls;
     let count = |s: FadeState| c.iter().filter(|x| x.state == s).count();
     eprintln!(

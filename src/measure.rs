@@ -65,38 +65,49 @@ pub struct RunStats {
     pub late: u64,
 }
 
-/// Runs `engine` over `seconds` of seeded noise in host calls of `host_frames`. When `paced`, each call
-/// is issued on the real deadline grid (sleeping between calls, as a sound card would wake the audio
-/// thread, so caches go cold as they do live); otherwise calls run back to back. Allocates its buffers
-/// before the run.
-///
-/// Worker CPU is credited when a job completes and published by `process()`, so a job still running when
-/// the run ends is left out of `mean_load_pct` and one that began just before the run is counted whole;
-/// over a run of many worker periods this is small.
+/// The timing of one host call.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CallTime {
+    /// Thread-CPU seconds of the `process()` call.
+    pub cpu_s: f64,
+    /// Wall-clock seconds of the call.
+    pub wall_s: f64,
+    /// The call was issued more than a period after its slot on the deadline grid (paced runs only).
+    pub behind: bool,
+}
+
+/// Issues up to `calls` host calls of `host_frames` frames of seeded noise through `engine`, each on the
+/// real deadline grid when `paced` (sleeping until its slot, as a sound card would wake the audio
+/// thread, so caches go cold as they do live), otherwise back to back. After each call, outside the
+/// timed region, `after(k, timing, outputs)` sees the call's index, timing and output buffers; it
+/// returns `false` to stop early. Allocates its buffers before the first call. Returns the calls made.
 ///
 /// # Panics
 /// When `host_frames` exceeds the engine's `max_host_frames`.
-pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: usize, paced: bool) -> RunStats {
+pub fn drive(
+    engine: &mut Engine,
+    sample_rate_hz: u32,
+    calls: usize,
+    host_frames: usize,
+    paced: bool,
+    mut after: impl FnMut(usize, CallTime, &[Vec<f32>]) -> bool,
+) -> usize {
     assert!(host_frames >= 1 && host_frames <= engine.max_host_frames());
     let mut noise = Noise::new(0xC0FFEE);
     let inputs: Vec<Vec<f32>> = (0..engine.inputs()).map(|_| noise.vec(host_frames * 64)).collect();
     let mut outputs = vec![vec![0.0f32; host_frames]; engine.outputs()];
-    let calls = ((seconds * f64::from(sample_rate_hz)) / host_frames as f64).ceil().max(1.0) as usize;
     let period = Duration::from_secs_f64(host_frames as f64 / f64::from(sample_rate_hz));
-    let mut cpu = Vec::with_capacity(calls);
-    let mut wall = Vec::with_capacity(calls);
     let mut ins: Vec<&[f32]> = Vec::with_capacity(inputs.len());
-    let monitor = engine.monitor();
-    let workers_start = monitor.worker_cpu_seconds();
-    let late_start = monitor.late_results();
-    let process_start = process_cpu_seconds();
     let start = Instant::now();
     for k in 0..calls {
+        let mut behind = false;
         if paced {
             let due = start + period * k as u32;
             let now = Instant::now();
             if due > now {
                 std::thread::sleep(due - now);
+            } else {
+                behind = now - due > period;
             }
         }
         let at = (k % 63) * host_frames;
@@ -107,11 +118,38 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
         let c0 = thread_cpu_seconds();
         let result = engine.process(&ins, &mut outs);
         let c1 = thread_cpu_seconds();
-        let w = t0.elapsed().as_secs_f64();
+        let wall_s = t0.elapsed().as_secs_f64();
         debug_assert!(result.is_ok());
-        cpu.push(c1 - c0);
-        wall.push(w);
+        if !after(k, CallTime { cpu_s: c1 - c0, wall_s, behind }, &outputs) {
+            return k + 1;
+        }
     }
+    calls
+}
+
+/// Runs `engine` over `seconds` of seeded noise in host calls of `host_frames`, paced or back to back
+/// as [`drive`] does, and summarizes the run.
+///
+/// Worker CPU is credited when a job completes and published by `process()`, so a job still running when
+/// the run ends is left out of `mean_load_pct` and one that began just before the run is counted whole;
+/// over a run of many worker periods this is small.
+///
+/// # Panics
+/// When `host_frames` exceeds the engine's `max_host_frames`.
+pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: usize, paced: bool) -> RunStats {
+    let calls = ((seconds * f64::from(sample_rate_hz)) / host_frames as f64).ceil().max(1.0) as usize;
+    let period = Duration::from_secs_f64(host_frames as f64 / f64::from(sample_rate_hz));
+    let mut cpu = Vec::with_capacity(calls);
+    let mut wall = Vec::with_capacity(calls);
+    let monitor = engine.monitor();
+    let workers_start = monitor.worker_cpu_seconds();
+    let late_start = monitor.late_results();
+    let process_start = process_cpu_seconds();
+    drive(engine, sample_rate_hz, calls, host_frames, paced, |_, t, _| {
+        cpu.push(t.cpu_s);
+        wall.push(t.wall_s);
+        true
+    });
     let process_cpu = process_cpu_seconds() - process_start;
     // Audio-thread time in the callbacks plus the worker threads' job time: the pacing loop's own
     // sleeping and bookkeeping is not the engine's load (it is in `process_cpu`).
