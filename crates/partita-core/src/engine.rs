@@ -728,11 +728,7 @@ impl Engine {
                         l.run_sync(io, level_irs, mask, kernel);
                     }
                 }
-                LevelSlot::Workers(w) => {
-                    if let Some(mask) = mask {
-                        w.at_boundary(io, level_irs, mask);
-                    }
-                }
+                LevelSlot::Workers(w) => w.at_boundary(io, level_irs, mask),
                 LevelSlot::Sliced(s) => s.at_boundary(io, level_irs, mask),
             }
         }

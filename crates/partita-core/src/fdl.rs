@@ -388,12 +388,23 @@ impl LevelRunner {
     /// Adds each output's result of every IR slot in `mask` into that slot's accumulator rings at
     /// `first_frame`.
     pub(crate) fn deliver(&self, rings: &mut [Vec<TimeRing>; 2], first_frame: i64, mask: SlotMask) {
+        self.deliver_range(rings, first_frame, mask, 0..self.n);
+    }
+
+    /// [`deliver`](Self::deliver) for result samples `range` only (they land at `first_frame + range.start`).
+    pub(crate) fn deliver_range(
+        &self,
+        rings: &mut [Vec<TimeRing>; 2],
+        first_frame: i64,
+        mask: SlotMask,
+        range: std::ops::Range<usize>,
+    ) {
         for (slot, slot_rings) in rings.iter_mut().enumerate() {
             if mask & (1 << slot) == 0 {
                 continue;
             }
             for (w, terms) in self.outputs.iter().enumerate() {
-                slot_rings[terms.output].add(first_frame, self.result(slot, w));
+                slot_rings[terms.output].add(first_frame + range.start as i64, &self.result(slot, w)[range.clone()]);
             }
         }
     }

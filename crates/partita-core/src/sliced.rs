@@ -37,8 +37,9 @@ enum Step {
     Merge { lo: usize },
     /// Unpack samples `[lo, lo + CHUNK)` of the kept half into output `w`'s result for IR slot `slot`.
     Unpack { slot: usize, w: usize, lo: usize },
-    /// Add every output's result into the output rings.
-    Deliver,
+    /// Add every output's result samples `[lo, lo + CHUNK)` into the output rings (in chunks, so that no
+    /// boundary adds a whole level block at once).
+    Deliver { lo: usize },
 }
 
 /// A level run in slices on the audio thread.
@@ -141,7 +142,9 @@ impl SlicedLevel {
                 }
             }
         }
-        steps.push((Step::Deliver, (outputs * n) as u64, SHARED));
+        for lo in chunks(n, CHUNK) {
+            steps.push((Step::Deliver { lo }, (outputs * CHUNK.min(n - lo)) as u64, SHARED));
+        }
         let total_cost = job_cost(&steps, 1);
         Self {
             runner,
@@ -269,7 +272,10 @@ impl SlicedLevel {
                     *r = if t.is_multiple_of(2) { c.re } else { c.im };
                 }
             }
-            Step::Deliver => self.runner.deliver(outputs, self.job_emit + n as i64, self.mask),
+            Step::Deliver { lo } => {
+                let hi = (lo + CHUNK).min(n);
+                self.runner.deliver_range(outputs, self.job_emit + n as i64, self.mask, lo..hi);
+            }
         }
     }
 

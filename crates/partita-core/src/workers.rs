@@ -5,15 +5,20 @@
 //! Hand-off protocol, all lock-free (the audio thread never blocks; waking the worker is a futex post
 //! through [`std::thread::Thread::unpark`]):
 //! - job `j` uses slot `j % SLOTS` for its N new input frames and its N result frames per output;
-//! - the audio thread writes input slot `j % SLOTS` only when `completed + SLOTS > j` (the worker is done
-//!   with job `j - SLOTS`), then publishes `released = j + 1` (release ordering);
+//! - the audio thread stages the job's input into input slot `j % SLOTS` in chunks of C frames as they
+//!   complete ([`TRANSFER_FRAMES`] or less, so that no callback copies a whole big level block), only
+//!   while `completed + SLOTS > j` (the worker is done with job `j - SLOTS`); when the last chunk is in,
+//!   it publishes `released = j + 1` (release ordering);
 //! - the worker reads job `j`'s input after seeing `released > j` (acquire), writes its result, then
 //!   publishes `completed = j + 1` (release);
 //! - at the due boundary the audio thread reads the result after seeing `completed > j` (acquire), waiting
 //!   at most [`LATE_SPIN`]; if the result is still not there it is abandoned (`abandoned = j + 1`), the
 //!   block goes out without the level's contribution, and `late_results` counts it. The worker still
 //!   pushes every block into its delay line, so later blocks stay correct; it skips the multiply and
-//!   inverse FFT of abandoned jobs to catch up.
+//!   inverse FFT of abandoned jobs to catch up;
+//! - a collected result is added into the output rings C frames at a time, each chunk at the boundary
+//!   before its first frame is emitted (the job's slot is not written again before job `j + SLOTS` is released, several periods
+//!   after its delivery ends).
 
 use std::cell::UnsafeCell;
 use std::sync::atomic::{AtomicBool, AtomicPtr, AtomicU64, AtomicU8, AtomicUsize, Ordering};
@@ -39,6 +44,12 @@ pub enum Lateness {
     /// and tests, where callbacks come faster than real time.
     Wait,
 }
+
+/// Largest chunk, in frames, the audio thread moves in one boundary between a worker level's slots and
+/// the engine's rings (levels up to this size move their whole block at the release boundary). Small
+/// enough that no callback carries a big level's copies (a 49,152-frame stereo level moves about 1.2 MB
+/// per period), large enough that most callbacks touch none of the slots.
+pub(crate) const TRANSFER_FRAMES: usize = 2048;
 
 /// Jobs in flight per worker level (input and result slots).
 const SLOTS: usize = 4;
@@ -98,9 +109,18 @@ pub(crate) struct WorkerLevel {
     /// The released job whose result is due at the next release boundary, where it lands, and its IR
     /// slots.
     outstanding: Option<(u64, i64, SlotMask)>,
+    /// The collected result being added into the output rings, B frames per boundary.
+    delivering: Option<Delivery>,
+    /// False once a block of the job being staged could not be written (its slot was still in use):
+    /// that job is refused at its release boundary.
+    staging_ok: bool,
     /// Per IR slot: the last job released that uses it.
     last_job_with: [Option<u64>; 2],
     n: usize,
+    /// Engine block B.
+    block: usize,
+    /// Transfer chunk C: a multiple of B that divides N.
+    chunk: usize,
     lead: usize,
     late: u64,
     refused: u64,
@@ -117,6 +137,19 @@ impl std::fmt::Debug for WorkerLevel {
             .field("late", &self.late)
             .finish_non_exhaustive()
     }
+}
+
+/// A completed job's result on its way into the output rings.
+#[derive(Debug, Clone, Copy)]
+struct Delivery {
+    job: u64,
+    /// Frame where the result's first sample lands.
+    at: i64,
+    mask: SlotMask,
+    /// Result samples delivered so far.
+    pos: usize,
+    /// Result samples emitted (rendered) so far.
+    emitted: usize,
 }
 
 /// Worker start-up options.
@@ -181,8 +214,12 @@ impl WorkerLevel {
             next_job: 0,
             epoch: 0,
             outstanding: None,
+            delivering: None,
+            staging_ok: true,
             last_job_with: [None, None],
             n,
+            block: n / period_blocks as usize,
+            chunk: transfer_chunk(n, n / period_blocks as usize),
             lead,
             late: 0,
             refused: 0,
@@ -195,47 +232,32 @@ impl WorkerLevel {
         block % self.period_blocks == self.phase_blocks
     }
 
-    /// At a release boundary: collect the job due now, then release the job for the block that just
-    /// completed, computing the IR slots in `mask` with the spectra `irs`.
-    pub(crate) fn at_boundary(&mut self, io: LevelIo<'_>, irs: [Option<&LevelIr>; 2], mask: SlotMask) {
-        let n = self.shared.n;
+    /// At every boundary: add this block's share of the result being delivered and stage the block that
+    /// just completed. At a release boundary (`release` is the IR slots to compute) also collect the job
+    /// due now and release the job whose input is complete, computing the IR slots in `release` with
+    /// the spectra `irs`.
+    pub(crate) fn at_boundary(&mut self, io: LevelIo<'_>, irs: [Option<&LevelIr>; 2], release: Option<SlotMask>) {
+        let n = self.n;
         let (inputs, outputs, now, emit) = (io.inputs, io.outputs, io.now, io.emit);
+        if let Some(d) = &mut self.delivering {
+            d.emitted += self.block;
+        }
+        self.deliver_due(outputs);
+        self.stage_block(inputs, now);
+        let Some(mask) = release else { return };
         if let Some((job, at, job_mask)) = self.outstanding.take() {
             if self.wait_completed(job) {
-                // SAFETY: `completed > job` was observed with acquire ordering, so the worker has
-                // finished writing this slot, and it will not touch it again before job + SLOTS is
-                // released, which only this thread does, later.
-                let result = unsafe { &*self.shared.output_slots[(job % SLOTS as u64) as usize].0.get() };
-                let q = self.outputs.len();
-                for (slot, slot_rings) in outputs.iter_mut().enumerate() {
-                    if job_mask & (1 << slot) == 0 {
-                        continue;
-                    }
-                    for (o, &out) in self.outputs.iter().enumerate() {
-                        let k = slot * q + o;
-                        slot_rings[out].add(at, &result[k * n..(k + 1) * n]);
-                    }
-                }
+                // The previous delivery ended at the boundary before this one (one period of blocks).
+                self.delivering = Some(Delivery { job, at, mask: job_mask, pos: 0, emitted: 0 });
+                self.deliver_due(outputs);
             } else {
                 self.shared.abandoned.store(job + 1, Ordering::Release);
                 self.late += 1;
             }
         }
         let job = self.next_job;
-        if self.lateness == Lateness::Wait {
-            while self.shared.completed.load(Ordering::Acquire) + (SLOTS as u64) <= job {
-                std::thread::yield_now();
-            }
-        }
-        if self.shared.completed.load(Ordering::Acquire) + SLOTS as u64 > job {
+        if std::mem::replace(&mut self.staging_ok, true) {
             let slot = (job % SLOTS as u64) as usize;
-            // SAFETY: the worker finished job - SLOTS (the previous user of this slot), observed above
-            // with acquire ordering, and it reads this slot only after the release below.
-            let buf = unsafe { &mut *self.shared.input_slots[slot].0.get() };
-            let start = now - self.delay as i64 - n as i64;
-            for (i, &input) in self.inputs.iter().enumerate() {
-                inputs[input].read(start, &mut buf[i * n..(i + 1) * n]);
-            }
             self.shared.slot_epoch[slot].store(self.epoch, Ordering::Relaxed);
             let mut job_mask = 0;
             for (s, ir) in irs.iter().enumerate() {
@@ -256,9 +278,69 @@ impl WorkerLevel {
             // Due one period later; lands at the next frame to emit plus N.
             self.outstanding = Some((job, emit + n as i64, job_mask));
         } else {
-            // The worker is SLOTS jobs behind: this block cannot enter its delay line.
+            // The worker was SLOTS jobs behind while this block was staged: it cannot enter the delay line.
             self.refused += 1;
         }
+    }
+
+    /// When the engine block that just completed (`delay` frames back from `now`) ends a chunk of the job
+    /// being staged, copies that chunk into the job's input slot, at its place in the job's N frames.
+    fn stage_block(&mut self, inputs: &[crate::ring::TimeRing], now: i64) {
+        let (n, b, c, job) = (self.n, self.block, self.chunk, self.next_job);
+        // Releases fall where now = B (m period + phase), and a job's last block sits at N - B.
+        let end = (now - (self.phase_blocks as usize * b) as i64).rem_euclid(n as i64) as usize;
+        let end = if end == 0 { n } else { end };
+        if !self.staging_ok || !end.is_multiple_of(c) {
+            return;
+        }
+        if !self.slot_free(job) {
+            self.staging_ok = false;
+            return;
+        }
+        let start = now - self.delay as i64 - c as i64;
+        // SAFETY: the worker finished job - SLOTS (the previous user of this slot), observed by
+        // `slot_free` with acquire ordering, and it reads this slot only after job's release.
+        let buf = unsafe { &mut *self.shared.input_slots[(job % SLOTS as u64) as usize].0.get() };
+        for (i, &input) in self.inputs.iter().enumerate() {
+            inputs[input].read(start, &mut buf[i * n + end - c..i * n + end]);
+        }
+    }
+
+    /// Adds the next chunk of the result being delivered into the output rings when the next engine
+    /// block to emit reaches it.
+    fn deliver_due(&mut self, outputs: &mut [Vec<crate::ring::TimeRing>; 2]) {
+        let Some(d) = &mut self.delivering else { return };
+        let (n, c, q) = (self.n, self.chunk, self.outputs.len());
+        if d.emitted + self.block <= d.pos {
+            return;
+        }
+        // SAFETY: `completed > d.job` was observed with acquire ordering before the delivery began, and
+        // the worker writes this slot again only for job d.job + SLOTS, released after the delivery ends.
+        let result = unsafe { &*self.shared.output_slots[(d.job % SLOTS as u64) as usize].0.get() };
+        for (slot, slot_rings) in outputs.iter_mut().enumerate() {
+            if d.mask & (1 << slot) == 0 {
+                continue;
+            }
+            for (o, &out) in self.outputs.iter().enumerate() {
+                let from = (slot * q + o) * n + d.pos;
+                slot_rings[out].add(d.at + d.pos as i64, &result[from..from + c]);
+            }
+        }
+        d.pos += c;
+        if d.pos >= n {
+            self.delivering = None;
+        }
+    }
+
+    /// Whether input slot `job % SLOTS` is free (the worker has finished job - SLOTS); under
+    /// [`Lateness::Wait`] waits until it is.
+    fn slot_free(&self, job: u64) -> bool {
+        if self.lateness == Lateness::Wait {
+            while self.shared.completed.load(Ordering::Acquire) + (SLOTS as u64) <= job {
+                std::thread::yield_now();
+            }
+        }
+        self.shared.completed.load(Ordering::Acquire) + SLOTS as u64 > job
     }
 
     fn wait_completed(&self, job: u64) -> bool {
@@ -301,7 +383,17 @@ impl WorkerLevel {
         if let Some((job, _, _)) = self.outstanding.take() {
             self.shared.abandoned.store(job + 1, Ordering::Release);
         }
+        self.delivering = None;
         self.epoch += 1;
+        // The blocks staged so far came from input rings the reset zeroes: zero them too.
+        let job = self.next_job;
+        if self.staging_ok && self.shared.completed.load(Ordering::Acquire) + SLOTS as u64 > job {
+            // SAFETY: as in `stage_block`.
+            let buf = unsafe { &mut *self.shared.input_slots[(job % SLOTS as u64) as usize].0.get() };
+            buf.fill(0.0);
+        } else {
+            self.staging_ok = false;
+        }
     }
 
     pub(crate) fn late(&self) -> u64 {
@@ -345,6 +437,14 @@ impl Drop for WorkerLevel {
             let _ = t.join();
         }
     }
+}
+
+/// The transfer chunk for a level of block `n` in an engine of block `b`: the largest multiple of `b`
+/// that divides `n` and is at most [`TRANSFER_FRAMES`] (`b` itself when `b` is larger).
+fn transfer_chunk(n: usize, b: usize) -> usize {
+    let period = n / b;
+    let most = (TRANSFER_FRAMES / b).clamp(1, period);
+    (1..=most).rev().find(|k| period.is_multiple_of(*k)).unwrap_or(1) * b
 }
 
 fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<Shared>, setup: WorkerSetup) {
@@ -433,5 +533,27 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
         shared.cpu_nanos.fetch_add(((c1 - c0).max(0.0) * 1e9) as u64, Ordering::Relaxed);
         taken += 1;
         shared.completed.store(taken, Ordering::Release);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::transfer_chunk;
+
+    #[test]
+    fn transfer_chunks_are_block_multiples_that_divide_the_level() {
+        assert_eq!(transfer_chunk(512, 64), 512); // small levels move whole at the release
+        assert_eq!(transfer_chunk(4096, 64), 2048);
+        assert_eq!(transfer_chunk(49_152, 64), 2048); // 768 blocks, chunks of 32
+        assert_eq!(transfer_chunk(6144, 64), 2048); // 96 blocks, chunks of 32
+        assert_eq!(transfer_chunk(5 * 1024, 1024), 1024); // 5 blocks: no divisor of 5 fits 2 blocks
+        assert_eq!(transfer_chunk(8192, 4096), 4096); // B above the chunk: one block at a time
+        for (n, b) in [(49_152, 64), (6144, 48), (3 * 2048, 96), (7 * 64, 64)] {
+            let c = transfer_chunk(n, b);
+            assert!(
+                c.is_multiple_of(b) && n.is_multiple_of(c) && (c <= super::TRANSFER_FRAMES || c == b),
+                "{n} {b} {c}"
+            );
+        }
     }
 }

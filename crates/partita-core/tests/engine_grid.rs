@@ -127,6 +127,34 @@ fn reset_returns_to_the_fresh_state() {
     }
 }
 
+/// The worker and sliced levels carry state between boundaries (a partly staged input block, a result
+/// being delivered, a job in slices): a reset in the middle of a level period must drop all of it.
+/// Workers run with `Lateness::Wait` so that both engines compute every block.
+#[test]
+fn reset_mid_period_returns_scheduled_levels_to_the_fresh_state() {
+    use partita_core::{EngineOptions, Lateness, Schedule};
+    for schedule in [Schedule::Workers, Schedule::Sliced] {
+        let ir = random_ir(2, 3000, 15);
+        let plan = scheduled_plan(schedule, false, 3000, 16);
+        assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{plan:?}");
+        let options = || {
+            let mut o = EngineOptions::new(64);
+            o.lateness = Lateness::Wait;
+            o
+        };
+        let input = random_input(2, 4000, 16);
+        let mut fresh = Engine::with_options(&plan, &ir, Routing::Stereo, options()).unwrap();
+        let want = stream(&mut fresh, &input, 7000, random_sizes(4, 64));
+        let mut used = Engine::with_options(&plan, &ir, Routing::Stereo, options()).unwrap();
+        // 1000 frames: not a whole period of any level above the first, so the reset falls mid-period.
+        let noise = random_input(2, 1000, 17);
+        stream(&mut used, &noise, 1000, random_sizes(5, 64));
+        used.reset();
+        let got = stream(&mut used, &input, 7000, random_sizes(4, 64));
+        assert_eq!(got, want, "{schedule:?}: {plan:?}");
+    }
+}
+
 #[test]
 fn impulse_appears_at_latency_frames() {
     for b in [1usize, 16, 48, 64, 96, 1024] {

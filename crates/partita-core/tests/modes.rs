@@ -67,6 +67,27 @@ fn long_ir_optimal_plans_match_the_oracle() {
 }
 
 #[test]
+fn long_ir_scheduled_plans_match_the_oracle() {
+    // Worker and sliced levels above 2048 frames move their input and results in chunks over several
+    // boundaries (workers::TRANSFER_FRAMES, the sliced steps): 1 s stereo at 48 kHz, block 64.
+    let taps = 48_000;
+    let ir = ImpulseResponse::new(
+        (0..2).map(|c| partita_core::synth::decaying_noise(taps, 20_000.0, 40 + c)).collect(),
+        48_000,
+    )
+    .unwrap();
+    for schedule in [Schedule::Workers, Schedule::Sliced] {
+        let plan = scheduled_plan(schedule, false, taps, 64);
+        assert!(
+            plan.levels.iter().any(|l| l.schedule == schedule && l.block_frames > 2048),
+            "{schedule:?}: {:?}",
+            plan.levels
+        );
+        check_against_oracle(&plan, &ir, Routing::Stereo, 3000, 9);
+    }
+}
+
+#[test]
 fn custom_plans_run_and_invalid_ones_are_refused() {
     let b = 32;
     let planner = Planner::new().block_frames(b);
