@@ -39,7 +39,13 @@ fn subnormal_input_is_flushed_and_the_callers_mode_restored() {
     assert!(first_subnormal < 20_000, "{first_subnormal}");
     for schedule in [Schedule::Sync, Schedule::Workers, Schedule::Sliced] {
         let ir = random_ir(2, 4000, 6);
-        let plan = Planner::new().block_frames(32).schedule(schedule).min_sliced_frames(0).plan(4000).unwrap();
+        let plan = Planner::new()
+            .block_frames(32)
+            .schedule(schedule)
+            .min_sliced_frames(0)
+            .min_worker_frames(0)
+            .plan(4000)
+            .unwrap();
         let options = EngineOptions { lateness: Lateness::Wait, ..EngineOptions::new(256) };
         let mut engine = Engine::with_options(&plan, &ir, Routing::Stereo, options).unwrap();
         let lat = engine.latency_frames();

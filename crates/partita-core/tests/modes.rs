@@ -14,10 +14,14 @@ fn planners(b: usize) -> Vec<(&'static str, Planner)> {
         ("zero-optimal", Planner::new().block_frames(b).zero_latency(true)),
         // Small level caps force many levels on short IRs, exercising level transitions.
         ("optimal-capped", Planner::new().block_frames(b).max_level_frames(4 * b)),
-        ("optimal-workers", Planner::new().block_frames(b).schedule(Schedule::Workers)),
-        // min_sliced_frames(0): slice every level above the block, even small ones, to exercise slicing.
+        // min_worker_frames(0) / min_sliced_frames(0): every level above the block on a worker or sliced,
+        // even small ones, to exercise the hand-offs and the slicing.
+        ("optimal-workers", Planner::new().block_frames(b).schedule(Schedule::Workers).min_worker_frames(0)),
         ("optimal-sliced", Planner::new().block_frames(b).schedule(Schedule::Sliced).min_sliced_frames(0)),
-        ("zero-workers", Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Workers)),
+        (
+            "zero-workers",
+            Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Workers).min_worker_frames(0),
+        ),
         (
             "zero-sliced",
             Planner::new().block_frames(b).zero_latency(true).schedule(Schedule::Sliced).min_sliced_frames(0),
@@ -100,7 +104,8 @@ fn custom_plans_run_and_invalid_ones_are_refused() {
     let err = planner.custom(&[(32, 3), (256, 4)], 1000).unwrap_err();
     assert!(err.to_string().contains("s >= N - B"), "{err}");
     // With a level period of delay (workers), 96 needs s >= 2N - B = 160.
-    let err = planner.clone().schedule(Schedule::Workers).custom(&[(32, 3), (96, 10)], 1000).unwrap_err();
+    let workers = planner.clone().schedule(Schedule::Workers).min_worker_frames(0);
+    let err = workers.custom(&[(32, 3), (96, 10)], 1000).unwrap_err();
     assert!(err.to_string().contains("2N - B"), "{err}");
     let err = planner.custom(&[(32, 3), (48, 10)], 1000).unwrap_err();
     assert!(err.to_string().contains("not a multiple"), "{err}");

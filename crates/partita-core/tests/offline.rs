@@ -53,6 +53,7 @@ fn render_matches_the_oracle_for_every_routing_and_thread_count() {
                 Planner::new()
                     .block_frames(64)
                     .schedule(Schedule::Workers)
+                    .min_worker_frames(0)
                     .max_level_frames(512)
                     .plan(h.frames())
                     .unwrap(),

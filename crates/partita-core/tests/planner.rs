@@ -40,10 +40,11 @@ impl Search<'_> {
             }
             let n = m * self.b;
             // As the planner documents: level-0 blocks are sync, and so are sliced levels below
-            // `min_sliced_frames` (set to MIN_SLICED below).
+            // `min_sliced_frames` and worker levels below `min_worker_frames` (both set to MIN_SLICED
+            // below).
             let schedule = match self.schedule {
                 _ if m == 1 => Schedule::Sync,
-                Schedule::Sliced if n < MIN_SLICED => Schedule::Sync,
+                Schedule::Sliced | Schedule::Workers if n < MIN_SLICED => Schedule::Sync,
                 s => s,
             };
             let probe = Level { block_frames: n, partitions: 1, offset_frames: offset * self.b, schedule };
@@ -65,7 +66,8 @@ impl Search<'_> {
     }
 }
 
-/// `min_sliced_frames` for the exhaustive comparison: with B = 4, levels of 8 frames stay sync.
+/// `min_sliced_frames` and `min_worker_frames` for the exhaustive comparison: with B = 4, levels of 8
+/// frames stay sync.
 const MIN_SLICED: usize = 12;
 
 fn measured_model() -> CostModel {
@@ -98,7 +100,8 @@ fn optimal_equals_exhaustive_search_on_small_problems() {
                     .schedule(schedule)
                     .cost_model(model.clone())
                     .max_level_frames(cap * b)
-                    .min_sliced_frames(MIN_SLICED);
+                    .min_sliced_frames(MIN_SLICED)
+                    .min_worker_frames(MIN_SLICED);
                 let plan = planner.plan(ir_frames).unwrap();
                 plan.validate().unwrap();
                 let dp = model.plan_cost(&plan, Shape::MONO);
@@ -226,4 +229,29 @@ fn plans_round_trip_through_json() {
     assert!(json.contains("\"schedule\":\"workers\""), "{json}");
     let back: Plan = serde_json::from_str(&json).unwrap();
     assert_eq!(back, plan);
+}
+
+#[test]
+fn small_levels_stay_in_the_callback_under_workers() {
+    // S1 shape: 10 s at 48 kHz, block 64.
+    for (min, zero) in [(1024usize, false), (1024, true), (0, false), (4096, false)] {
+        let plan = Planner::new()
+            .block_frames(64)
+            .zero_latency(zero)
+            .schedule(Schedule::Workers)
+            .min_worker_frames(min)
+            .plan(480_000)
+            .unwrap();
+        plan.validate().unwrap();
+        for (k, l) in plan.levels.iter().enumerate() {
+            let want = if k == 0 || l.block_frames < min { Schedule::Sync } else { Schedule::Workers };
+            assert_eq!(l.schedule, want, "min {min}: {:?}", plan.levels);
+        }
+        assert!(plan.levels.iter().any(|l| l.schedule == Schedule::Workers), "min {min}: {:?}", plan.levels);
+    }
+    // The default is 1024 frames.
+    let default = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(480_000).unwrap();
+    let explicit =
+        Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(1024).plan(480_000).unwrap();
+    assert_eq!(default, explicit);
 }

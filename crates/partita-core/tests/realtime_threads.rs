@@ -25,6 +25,7 @@ fn workers_and_sliced_levels_never_touch_the_heap_on_any_thread() {
                 .zero_latency(zero)
                 .schedule(schedule)
                 .min_sliced_frames(0)
+                .min_worker_frames(0)
                 .plan(30_000)
                 .unwrap();
             assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{:?}", plan.levels);

@@ -83,7 +83,7 @@ fn dropping_an_engine_with_busy_workers_ends_every_thread() {
     let _serial = SERIAL.lock().unwrap_or_else(|e| e.into_inner());
     let before = live_worker_threads();
     let ir = random_ir(4, 20_000, 4);
-    let plan = Planner::new().block_frames(32).schedule(Schedule::Workers).plan(20_000).unwrap();
+    let plan = Planner::new().block_frames(32).schedule(Schedule::Workers).min_worker_frames(0).plan(20_000).unwrap();
     let mut engine = Engine::new(&plan, &ir, Routing::TrueStereo, 32).unwrap();
     let threads = engine.worker_threads();
     assert!(threads >= 2, "{:?}", plan.levels);
@@ -103,8 +103,9 @@ fn dropping_an_engine_with_busy_workers_ends_every_thread() {
 fn realtime_priority_is_optional_and_reported() {
     let _serial = SERIAL.lock().unwrap_or_else(|e| e.into_inner());
     let ir = random_ir(1, 5_000, 2);
-    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(5_000).unwrap();
+    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0).plan(5_000).unwrap();
     let plain = Engine::new(&plan, &ir, Routing::Mono, 64).unwrap();
+    assert!(plain.worker_threads() > 0, "{:?}", plan.levels);
     assert!(plain.worker_priorities().iter().all(Option::is_none), "no priority unless asked");
     let options = EngineOptions { realtime_workers: true, ..EngineOptions::new(64) };
     let asked = Engine::with_options(&plan, &ir, Routing::Mono, options).unwrap();

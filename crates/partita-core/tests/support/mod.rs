@@ -62,14 +62,15 @@ pub fn padded(input: &[Vec<f32>], total: usize) -> Vec<Vec<f32>> {
         .collect()
 }
 
-/// A plan from the optimal planner with `schedule` for the levels above the block (sliced levels
-/// allowed at any size), checked to use that schedule.
+/// A plan from the optimal planner with `schedule` for the levels above the block (sliced and worker
+/// levels allowed at any size), checked to use that schedule.
 pub fn scheduled_plan(schedule: partita_core::Schedule, zero: bool, ir_frames: usize, block: usize) -> Plan {
     let plan = partita_core::Planner::new()
         .block_frames(block)
         .zero_latency(zero)
         .schedule(schedule)
         .min_sliced_frames(0)
+        .min_worker_frames(0)
         .plan(ir_frames)
         .unwrap();
     if schedule != partita_core::Schedule::Sync {
