@@ -41,12 +41,15 @@ fn zero_latency_and_schedules_show_in_the_plan() {
     assert_eq!(v["head_frames"], 128);
     let levels = v["levels"].as_array().unwrap();
     assert_eq!(levels[0]["schedule"], "sync");
-    // Levels below 1024 frames stay in the callback (Planner::min_worker_frames); the rest go to workers.
-    for l in levels.iter().skip(1) {
+    assert!(levels.iter().skip(1).all(|l| l["schedule"] == "workers"), "{levels:?}");
+    // --min-worker-frames keeps the smaller levels in the callback.
+    let v = plan_json(&["--ir-seconds", "10", "--block", "64", "--schedule", "workers", "--min-worker-frames", "1024"]);
+    let levels = v["levels"].as_array().unwrap();
+    for l in levels {
         let want = if l["block_frames"].as_u64().unwrap() < 1024 { "sync" } else { "workers" };
         assert_eq!(l["schedule"], want, "{levels:?}");
     }
-    assert!(levels.iter().any(|l| l["schedule"] == "workers"), "{levels:?}");
+    assert!(levels.iter().filter(|l| l["schedule"] == "sync").count() >= 2, "{levels:?}");
 }
 
 #[test]

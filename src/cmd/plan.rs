@@ -39,6 +39,11 @@ pub struct PlanArgs {
     /// Schedule of levels larger than the block: sync, workers or sliced.
     #[arg(long, default_value = "sync")]
     schedule: Schedule,
+    /// With --schedule workers: levels below this many frames stay in the callback (lower mean load,
+    /// longer callbacks when such a level completes) [default: 0, every level above the block on a
+    /// worker].
+    #[arg(long, value_name = "N", default_value_t = 0)]
+    min_worker_frames: usize,
     /// Uniform partitions instead of the optimal plan.
     #[arg(long)]
     uniform: bool,
@@ -152,6 +157,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         .block_frames(args.block.unwrap_or(64))
         .zero_latency(args.zero_latency)
         .schedule(args.schedule)
+        .min_worker_frames(args.min_worker_frames)
         .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
         .cost_model(model.clone())
         .shape(shape);

@@ -56,7 +56,7 @@ impl Planner {
             shape: Shape::MONO,
             max_level_frames: 1 << 16,
             min_sliced_frames: 2048,
-            min_worker_frames: 1024,
+            min_worker_frames: 0,
         }
     }
 
@@ -111,13 +111,14 @@ impl Planner {
         self
     }
 
-    /// With the `workers` schedule, levels smaller than this stay `sync` (default 1,024 frames). A small
-    /// level's whole job is short enough for the callback, and keeping it there saves a worker wake-up
-    /// per level period and the larger offset a worker level needs (s >= 2N - B instead of N - B), which
-    /// costs extra partitions below it. Measured for S1 (10 s stereo IR, block 64, paced) against
-    /// workers for every level above the block: mean load of all threads 1.32-1.41% against
-    /// 1.41-2.04%, callback p99.9 4.6-6.5% against 6.3-7.6% of the deadline (BENCHMARKS.md). 0 puts
-    /// every level above the block on a worker.
+    /// With the `workers` schedule, levels smaller than this stay `sync` (default 0: every level above
+    /// the block goes to a worker). Keeping small levels in the callback saves a worker wake-up per level
+    /// period and the larger offset a worker level needs (s >= 2N - B instead of N - B), which costs
+    /// extra partitions below it, so the mean load drops; but every callback that completes such a level
+    /// carries its whole job, so the callback-time tail grows. Measured for S1 (10 s stereo IR, block
+    /// 64, paced, `partita plan --min-worker-frames`, BENCHMARKS.md) with 1024 against 0: mean load of
+    /// all threads 1.23-1.35% against 1.20-1.89%, callback p99.9 4.9-14.7% against 3.3-6.9% of the
+    /// deadline.
     pub fn min_worker_frames(mut self, frames: usize) -> Self {
         self.min_worker_frames = frames;
         self

@@ -249,9 +249,9 @@ fn small_levels_stay_in_the_callback_under_workers() {
         }
         assert!(plan.levels.iter().any(|l| l.schedule == Schedule::Workers), "min {min}: {:?}", plan.levels);
     }
-    // The default is 1024 frames.
+    // The default is 0: every level above the block on a worker.
     let default = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(480_000).unwrap();
     let explicit =
-        Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(1024).plan(480_000).unwrap();
+        Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0).plan(480_000).unwrap();
     assert_eq!(default, explicit);
 }
