@@ -63,6 +63,14 @@ pub struct RunStats {
     pub p999_wall_pct: f64,
     /// Worker results that missed their deadline during the run.
     pub late: u64,
+    /// Callbacks in one period of the largest level (its block over the host call size, when that
+    /// divides it; else 1): the callbacks at the same position in that period do the same level work.
+    pub phase_calls: usize,
+    /// The worst, over the positions in that period, of the mean callback thread-CPU time at that
+    /// position, % of the deadline. Averaging over the run's periods takes out most of the machine's
+    /// random noise (preemption, interrupts) and leaves the work the schedule puts in each callback: how
+    /// evenly a schedule spreads its levels, even where the maximum is set by noise.
+    pub worst_phase_mean_pct: f64,
 }
 
 /// The timing of one host call.
@@ -157,6 +165,15 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
     let audio_seconds = (calls * host_frames) as f64 / f64::from(sample_rate_hz);
     let deadline = period.as_secs_f64();
     let pct = |v: f64| 100.0 * v / deadline;
+    let max_level = engine.plan().max_level_frames();
+    let phase_calls = if max_level.is_multiple_of(host_frames) { (max_level / host_frames).max(1) } else { 1 };
+    let mut phase_sum = vec![(0.0f64, 0usize); phase_calls];
+    for (k, &c) in cpu.iter().enumerate() {
+        let p = &mut phase_sum[k % phase_calls];
+        p.0 += c;
+        p.1 += 1;
+    }
+    let worst_phase = phase_sum.iter().filter(|p| p.1 > 0).map(|p| p.0 / p.1 as f64).fold(0.0, f64::max);
     cpu.sort_by(f64::total_cmp);
     wall.sort_by(f64::total_cmp);
     let q = |v: &[f64], f: f64| v[((v.len() as f64 - 1.0) * f).round() as usize];
@@ -172,5 +189,7 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
         max_wall_pct: pct(*wall.last().unwrap_or(&0.0)),
         p999_wall_pct: pct(q(&wall, 0.999)),
         late: monitor.late_results() - late_start,
+        phase_calls,
+        worst_phase_mean_pct: pct(worst_phase),
     }
 }
