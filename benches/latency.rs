@@ -262,7 +262,7 @@ fn print_s1(cells: &[Cell]) {
         "p99.9 %",
         "max %",
         "max wall %",
-        "heaviest phase mean %",
+        "heaviest phase median %",
         "late",
         "targets",
     ]);
@@ -302,16 +302,16 @@ fn print_s1(cells: &[Cell]) {
             format!("{:.2}", m.p999_pct),
             format!("{:.1}", m.max_pct),
             format!("{:.1}", m.max_wall_pct),
-            format!("{:.1}", m.worst_phase_mean_pct),
+            format!("{:.1}", m.worst_phase_median_pct),
             m.late.to_string(),
             targets,
         ]);
     }
     println!("## S1: 10 s stereo IR, block 64 (deadline 1.333 ms)\n");
     println!(
-        "\"heaviest phase mean\": callbacks at the same position in the largest level's period do the same \
-         level work; the worst of their mean times shows how evenly the schedule spreads it (most of the \
-         machine's random noise averages out).\n"
+        "\"heaviest phase median\": callbacks at the same position in the largest level's period do the \
+         same level work; the worst of their median times shows how evenly the schedule spreads it (the \
+         machine's rare noise drops out of a median).\n"
     );
     println!("{}", t.render());
 }
@@ -332,7 +332,7 @@ fn write_csv(cells: &[Cell]) -> std::path::PathBuf {
             "late",
             "model_ratio",
             "process_load_pct",
-            "worst_phase_mean_pct",
+            "worst_phase_median_pct",
         ],
     );
     // Skipped cells have no measurement and are left out (the Markdown table lists them with the reason).
@@ -351,7 +351,7 @@ fn write_csv(cells: &[Cell]) -> std::path::PathBuf {
                 m.late.to_string(),
                 format!("{:.4}", m.mean_load_pct / c.predicted_pct),
                 format!("{:.4}", m.process_load_pct),
-                format!("{:.4}", m.worst_phase_mean_pct),
+                format!("{:.4}", m.worst_phase_median_pct),
             ]);
         }
     }

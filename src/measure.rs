@@ -66,11 +66,12 @@ pub struct RunStats {
     /// Callbacks in one period of the largest level (its block over the host call size, when that
     /// divides it; else 1): the callbacks at the same position in that period do the same level work.
     pub phase_calls: usize,
-    /// The worst, over the positions in that period, of the mean callback thread-CPU time at that
-    /// position, % of the deadline. Averaging over the run's periods takes out most of the machine's
-    /// random noise (preemption, interrupts) and leaves the work the schedule puts in each callback: how
-    /// evenly a schedule spreads its levels, even where the maximum is set by noise.
-    pub worst_phase_mean_pct: f64,
+    /// The worst, over the positions in that period, of the median callback thread-CPU time at that
+    /// position (across the run's periods), % of the deadline. The median takes out the machine's rare
+    /// noise (preemption, interrupts, a stalled vCPU) and leaves the work the schedule puts in each
+    /// callback: how evenly a schedule spreads its levels, even where the maximum is set by noise. Needs
+    /// a run of several periods of the largest level.
+    pub worst_phase_median_pct: f64,
 }
 
 /// The timing of one host call.
@@ -167,13 +168,18 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
     let pct = |v: f64| 100.0 * v / deadline;
     let max_level = engine.plan().max_level_frames();
     let phase_calls = if max_level.is_multiple_of(host_frames) { (max_level / host_frames).max(1) } else { 1 };
-    let mut phase_sum = vec![(0.0f64, 0usize); phase_calls];
+    let mut by_phase: Vec<Vec<f64>> = vec![Vec::new(); phase_calls];
     for (k, &c) in cpu.iter().enumerate() {
-        let p = &mut phase_sum[k % phase_calls];
-        p.0 += c;
-        p.1 += 1;
+        by_phase[k % phase_calls].push(c);
     }
-    let worst_phase = phase_sum.iter().filter(|p| p.1 > 0).map(|p| p.0 / p.1 as f64).fold(0.0, f64::max);
+    let worst_phase = by_phase
+        .iter_mut()
+        .filter(|v| !v.is_empty())
+        .map(|v| {
+            v.sort_by(f64::total_cmp);
+            v[v.len() / 2]
+        })
+        .fold(0.0, f64::max);
     cpu.sort_by(f64::total_cmp);
     wall.sort_by(f64::total_cmp);
     let q = |v: &[f64], f: f64| v[((v.len() as f64 - 1.0) * f).round() as usize];
@@ -190,6 +196,6 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
         p999_wall_pct: pct(q(&wall, 0.999)),
         late: monitor.late_results() - late_start,
         phase_calls,
-        worst_phase_mean_pct: pct(worst_phase),
+        worst_phase_median_pct: pct(worst_phase),
     }
 }

@@ -227,7 +227,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
             out["p50_callback_pct"] = json!(m.p50_pct);
             out["p99_callback_pct"] = json!(m.p99_pct);
             out["p999_callback_pct"] = json!(m.p999_pct);
-            out["worst_phase_mean_pct"] = json!(m.worst_phase_mean_pct);
+            out["worst_phase_median_pct"] = json!(m.worst_phase_median_pct);
             out["phase_callbacks"] = json!(m.phase_calls);
             out["measured_seconds"] = json!(m.audio_seconds);
             out["late_results"] = json!(m.late);
@@ -287,9 +287,9 @@ pub fn run(args: PlanArgs) -> CmdResult {
             m.late
         );
         println!(
-            "             heaviest position in the {}-callback period of the largest level: {:.1}% of the deadline on \
-             average",
-            m.phase_calls, m.worst_phase_mean_pct
+            "             heaviest position in the {}-callback period of the largest level: {:.1}% of the deadline \
+             (median over the run)",
+            m.phase_calls, m.worst_phase_median_pct
         );
     }
     Ok(())
