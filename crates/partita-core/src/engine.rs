@@ -728,7 +728,11 @@ impl Engine {
                         l.run_sync(io, level_irs, mask, kernel);
                     }
                 }
-                LevelSlot::Workers(w) => w.at_boundary(io, level_irs, mask),
+                LevelSlot::Workers(w) => {
+                    if mask.is_some() || w.active_at(block) {
+                        w.at_boundary(io, level_irs, mask);
+                    }
+                }
                 LevelSlot::Sliced(s) => s.at_boundary(io, level_irs, mask),
             }
         }

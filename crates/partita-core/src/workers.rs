@@ -121,6 +121,8 @@ pub(crate) struct WorkerLevel {
     block: usize,
     /// Transfer chunk C: a multiple of B that divides N.
     chunk: usize,
+    /// C / B.
+    chunk_blocks: u64,
     lead: usize,
     late: u64,
     refused: u64,
@@ -148,8 +150,6 @@ struct Delivery {
     mask: SlotMask,
     /// Result samples delivered so far.
     pos: usize,
-    /// Result samples emitted (rendered) so far.
-    emitted: usize,
 }
 
 /// Worker start-up options.
@@ -220,6 +220,7 @@ impl WorkerLevel {
             n,
             block: n / period_blocks as usize,
             chunk: transfer_chunk(n, n / period_blocks as usize),
+            chunk_blocks: (transfer_chunk(n, n / period_blocks as usize) * period_blocks as usize / n) as u64,
             lead,
             late: 0,
             refused: 0,
@@ -232,24 +233,28 @@ impl WorkerLevel {
         block % self.period_blocks == self.phase_blocks
     }
 
-    /// At every boundary: add this block's share of the result being delivered and stage the block that
-    /// just completed. At a release boundary (`release` is the IR slots to compute) also collect the job
-    /// due now and release the job whose input is complete, computing the IR slots in `release` with
-    /// the spectra `irs`.
+    /// Whether boundary `block` ends a transfer chunk: the only boundaries where
+    /// [`at_boundary`](Self::at_boundary) has work (releases are among them). Other boundaries do not
+    /// touch the level at all, so most callbacks leave its state out of the cache.
+    pub(crate) fn active_at(&self, block: u64) -> bool {
+        block % self.chunk_blocks == self.phase_blocks % self.chunk_blocks
+    }
+
+    /// At a boundary that ends a transfer chunk ([`active_at`](Self::active_at)): add the result chunk
+    /// the next engine block needs and stage the input chunk that just completed. At a release boundary
+    /// (`release` is the IR slots to compute) also collect the job due now and release the job whose
+    /// input is complete, computing the IR slots in `release` with the spectra `irs`.
     pub(crate) fn at_boundary(&mut self, io: LevelIo<'_>, irs: [Option<&LevelIr>; 2], release: Option<SlotMask>) {
         let n = self.n;
         let (inputs, outputs, now, emit) = (io.inputs, io.outputs, io.now, io.emit);
-        if let Some(d) = &mut self.delivering {
-            d.emitted += self.block;
-        }
-        self.deliver_due(outputs);
+        self.deliver_due(outputs, emit);
         self.stage_block(inputs, now);
         let Some(mask) = release else { return };
         if let Some((job, at, job_mask)) = self.outstanding.take() {
             if self.wait_completed(job) {
                 // The previous delivery ended at the boundary before this one (one period of blocks).
-                self.delivering = Some(Delivery { job, at, mask: job_mask, pos: 0, emitted: 0 });
-                self.deliver_due(outputs);
+                self.delivering = Some(Delivery { job, at, mask: job_mask, pos: 0 });
+                self.deliver_due(outputs, emit);
             } else {
                 self.shared.abandoned.store(job + 1, Ordering::Release);
                 self.late += 1;
@@ -306,12 +311,12 @@ impl WorkerLevel {
         }
     }
 
-    /// Adds the next chunk of the result being delivered into the output rings when the next engine
-    /// block to emit reaches it.
-    fn deliver_due(&mut self, outputs: &mut [Vec<crate::ring::TimeRing>; 2]) {
+    /// Adds the next chunk of the result being delivered into the output rings when the engine block
+    /// about to be emitted (from frame `emit`) reaches it.
+    fn deliver_due(&mut self, outputs: &mut [Vec<crate::ring::TimeRing>; 2], emit: i64) {
         let Some(d) = &mut self.delivering else { return };
         let (n, c, q) = (self.n, self.chunk, self.outputs.len());
-        if d.emitted + self.block <= d.pos {
+        if d.at + d.pos as i64 >= emit + self.block as i64 {
             return;
         }
         // SAFETY: `completed > d.job` was observed with acquire ordering before the delivery began, and
