@@ -191,6 +191,8 @@ impl WorkerLevel {
         });
         let (period_blocks, phase_blocks, delay, lead) =
             (runner.period_blocks, runner.phase_blocks, runner.delay, runner.lead);
+        let block = n / period_blocks as usize;
+        let chunk = transfer_chunk(n, block);
         let worker_shared = Arc::clone(&shared);
         let windows: Vec<Vec<f32>> = (0..inputs.len()).map(|_| vec![0.0f32; 2 * n]).collect();
         let thread = std::thread::Builder::new()
@@ -218,9 +220,9 @@ impl WorkerLevel {
             staging_ok: true,
             last_job_with: [None, None],
             n,
-            block: n / period_blocks as usize,
-            chunk: transfer_chunk(n, n / period_blocks as usize),
-            chunk_blocks: (transfer_chunk(n, n / period_blocks as usize) * period_blocks as usize / n) as u64,
+            block,
+            chunk,
+            chunk_blocks: (chunk / block) as u64,
             lead,
             late: 0,
             refused: 0,
@@ -288,14 +290,16 @@ impl WorkerLevel {
         }
     }
 
-    /// When the engine block that just completed (`delay` frames back from `now`) ends a chunk of the job
-    /// being staged, copies that chunk into the job's input slot, at its place in the job's N frames.
+    /// Copies the chunk of the job being staged that the engine block just completed ends (`delay` frames
+    /// back from `now`) into the job's input slot, at its place in the job's N frames. Called only at
+    /// boundaries that end a chunk.
     fn stage_block(&mut self, inputs: &[crate::ring::TimeRing], now: i64) {
         let (n, b, c, job) = (self.n, self.block, self.chunk, self.next_job);
         // Releases fall where now = B (m period + phase), and a job's last block sits at N - B.
         let end = (now - (self.phase_blocks as usize * b) as i64).rem_euclid(n as i64) as usize;
         let end = if end == 0 { n } else { end };
-        if !self.staging_ok || !end.is_multiple_of(c) {
+        debug_assert!(end.is_multiple_of(c), "staging at a boundary inside a chunk");
+        if !self.staging_ok {
             return;
         }
         if !self.slot_free(job) {
