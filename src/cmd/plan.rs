@@ -40,8 +40,7 @@ pub struct PlanArgs {
     #[arg(long, default_value = "sync")]
     schedule: Schedule,
     /// With --schedule workers: levels below this many frames stay in the callback (lower mean load,
-    /// longer callbacks when such a level completes) [default: 0, every level above the block on a
-    /// worker].
+    /// longer callbacks when such a level completes); 0 puts every level above the block on a worker.
     #[arg(long, value_name = "N", default_value_t = 0)]
     min_worker_frames: usize,
     /// Uniform partitions instead of the optimal plan.
