@@ -465,7 +465,7 @@ fn bench_crossfade(
     let monitor = engine.monitor();
     // Warm up unpaced (as the latency bench's probe does): 0.2 s of audio, not recorded.
     let warm_calls = (0.2 * f64::from(RATE_HZ)) as usize / BLOCK_FRAMES;
-    measure::drive(&mut engine, RATE_HZ, warm_calls, BLOCK_FRAMES, false, |_, _, _| true);
+    measure::drive(&mut engine, RATE_HZ, warm_calls, BLOCK_FRAMES, measure::Pacing::None, |_, _, _| true);
 
     let steady_calls = (setup.steady_seconds * f64::from(RATE_HZ)) as usize / BLOCK_FRAMES;
     let timeout_calls = (setup.swap_timeout_seconds * f64::from(RATE_HZ)) as usize / BLOCK_FRAMES;
@@ -479,7 +479,7 @@ fn bench_crossfade(
     let mut swapped_at: Option<usize> = None;
     let mut swaps_done = 0u64;
     let mut worker_before = monitor.worker_cpu_seconds();
-    measure::drive(&mut engine, RATE_HZ, max_calls, BLOCK_FRAMES, true, |k, t, outputs| {
+    measure::drive(&mut engine, RATE_HZ, max_calls, BLOCK_FRAMES, measure::Pacing::Sleep, |k, t, outputs| {
         // Bookkeeping off the timed region (the control thread's work, done here between callbacks).
         behind += usize::from(t.behind);
         let status = control.status();

@@ -22,7 +22,9 @@
 //! cells of 0.3 s, same outputs, seconds.
 //!
 //! `PARTITA_LATENCY_IRS` and `PARTITA_LATENCY_BLOCKS` (comma-separated seconds and frames) restrict the
-//! sweep, e.g. to re-measure the S1 cells alone on a quiet machine.
+//! sweep, e.g. to re-measure the S1 cells alone on a quiet machine. `PARTITA_LATENCY_PACING=spin` waits
+//! for each call's slot by spinning instead of sleeping (`partita::measure::Pacing::Spin`): a diagnostic
+//! of what the sleeps cost on this machine, not the live figure; the default is `sleep`.
 //!
 //! Outputs: a Markdown table on stdout, `target/partita-bench/latency.csv` and `latency.svg`.
 
@@ -31,7 +33,7 @@ mod common;
 use std::time::Instant;
 
 use common::{load_average, machine_line, out_dir, quick_mode, stereo_ir, Csv, Table, RATE_HZ};
-use partita::measure::{run, RunStats};
+use partita::measure::{run, Pacing, RunStats};
 use partita_core::{CostModel, Engine, ImpulseResponse, Kernel, Plan, PlanMode, Planner, Routing, Schedule, Shape};
 use plotters::prelude::*;
 
@@ -70,14 +72,23 @@ struct Cell {
 /// Paced run. Its `mean_load_pct` is the load of every thread the engine uses (the callbacks' thread CPU
 /// plus the workers' job CPU); do not add "process CPU minus this thread's" on top, which would count the
 /// workers twice.
-fn measure(engine: &mut Engine, seconds: f64, block: usize) -> RunStats {
-    run(engine, RATE_HZ, seconds, block, true)
+fn measure(engine: &mut Engine, seconds: f64, block: usize, pacing: Pacing) -> RunStats {
+    run(engine, RATE_HZ, seconds, block, pacing)
+}
+
+/// `PARTITA_LATENCY_PACING`: `sleep` (the default) or `spin`.
+fn pacing_env() -> Pacing {
+    match std::env::var("PARTITA_LATENCY_PACING").as_deref().map(str::trim) {
+        Err(_) | Ok("") | Ok("sleep") => Pacing::Sleep,
+        Ok("spin") => Pacing::Spin,
+        Ok(other) => panic!("PARTITA_LATENCY_PACING: `{other}` is not sleep or spin"),
+    }
 }
 
 /// Unpaced run of `seconds` of audio: back-to-back load of the whole process (an upper bound on the
 /// engine's), % of one core. Warms the engine up.
 fn probe_load_pct(engine: &mut Engine, seconds: f64, block: usize) -> f64 {
-    run(engine, RATE_HZ, seconds, block, false).process_load_pct
+    run(engine, RATE_HZ, seconds, block, Pacing::None).process_load_pct
 }
 
 /// A comma-separated list from the environment (e.g. `PARTITA_LATENCY_IRS=10 PARTITA_LATENCY_BLOCKS=64` runs
@@ -107,6 +118,7 @@ fn main() {
         list_env("PARTITA_LATENCY_BLOCKS", if quick { &[64, 256] } else { &[16, 32, 64, 128, 256, 512, 1024] });
     let ir_lengths = list_env("PARTITA_LATENCY_IRS", if quick { &[0.5] } else { &[0.5, 2.0, 10.0] });
     let (blocks, ir_lengths) = (&blocks[..], &ir_lengths[..]);
+    let pacing = pacing_env();
     let kernel = Kernel::detect();
     let costs = partita::calibration::machine_costs(kernel, false);
     let model = CostModel::Measured(costs);
@@ -117,8 +129,13 @@ fn main() {
         .flat_map(|&s| blocks.iter().map(move |&b| cell_seconds(quick, s, b) * MODES.len() as f64))
         .sum();
     println!(
-        "# Latency sweep{}: stereo IRs, 48 kHz, paced\n\n{}\n",
+        "# Latency sweep{}: stereo IRs, 48 kHz, paced ({})\n\n{}\n",
         if quick { " (quick mode)" } else { "" },
+        if pacing == Pacing::Spin {
+            "spinning between calls: a diagnostic, not the live figure"
+        } else {
+            "sleeping between calls"
+        },
         machine_line()
     );
     eprintln!("latency sweep: up to {planned:.0} s of paced audio (hopeless cells are skipped)");
@@ -144,7 +161,7 @@ fn main() {
                     if probe > HOPELESS_LOAD_PCT {
                         Err(format!("skipped: {probe:.0}% of one core in an unpaced probe"))
                     } else {
-                        Ok(measure(&mut engine, cell_seconds(quick, ir_seconds, block), block))
+                        Ok(measure(&mut engine, cell_seconds(quick, ir_seconds, block), block, pacing))
                     }
                 };
                 match &result {

@@ -74,6 +74,51 @@ pub struct RunStats {
     pub worst_phase_median_pct: f64,
 }
 
+/// How a measured run issues its host calls.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Pacing {
+    /// Back to back, as fast as the engine runs: its cost with warm caches.
+    None,
+    /// On the real deadline grid, sleeping until each call's slot, as a sound card wakes the audio
+    /// thread: the cost as it is live, where the core may run other work (and lose the engine's cache
+    /// lines) while the thread sleeps.
+    #[default]
+    Sleep,
+    /// On the real deadline grid, spinning until each call's slot: the thread keeps its core between
+    /// calls, as on a machine whose audio core has nothing else to run. A diagnostic beside `Sleep`:
+    /// the difference between the two is what the sleeps cost on this machine, not the engine's work.
+    Spin,
+}
+
+impl Pacing {
+    /// The name used on the command line and in reports.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Pacing::None => "none",
+            Pacing::Sleep => "sleep",
+            Pacing::Spin => "spin",
+        }
+    }
+
+    /// True when calls are issued on the deadline grid.
+    pub fn paced(self) -> bool {
+        self != Pacing::None
+    }
+}
+
+impl std::str::FromStr for Pacing {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s {
+            "none" => Ok(Pacing::None),
+            "sleep" => Ok(Pacing::Sleep),
+            "spin" => Ok(Pacing::Spin),
+            other => Err(format!("unknown pacing `{other}`: use sleep, spin or none")),
+        }
+    }
+}
+
 /// The timing of one host call.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct CallTime {
@@ -85,9 +130,9 @@ pub struct CallTime {
     pub behind: bool,
 }
 
-/// Issues up to `calls` host calls of `host_frames` frames of seeded noise through `engine`, each on the
-/// real deadline grid when `paced` (sleeping until its slot, as a sound card would wake the audio
-/// thread, so caches go cold as they do live), otherwise back to back. After each call, outside the
+/// Issues up to `calls` host calls of `host_frames` frames of seeded noise through `engine`, as `pacing`
+/// says: on the real deadline grid, sleeping until each slot (as a sound card would wake the audio
+/// thread, so caches go cold as they do live) or spinning until it, or back to back. After each call, outside the
 /// timed region, `after(k, timing, outputs)` sees the call's index, timing and output buffers; it
 /// returns `false` to stop early. Allocates its buffers before the first call. Returns the calls made.
 ///
@@ -98,7 +143,7 @@ pub fn drive(
     sample_rate_hz: u32,
     calls: usize,
     host_frames: usize,
-    paced: bool,
+    pacing: Pacing,
     mut after: impl FnMut(usize, CallTime, &[Vec<f32>]) -> bool,
 ) -> usize {
     assert!(host_frames >= 1 && host_frames <= engine.max_host_frames());
@@ -110,11 +155,17 @@ pub fn drive(
     let start = Instant::now();
     for k in 0..calls {
         let mut behind = false;
-        if paced {
+        if pacing.paced() {
             let due = start + period * k as u32;
             let now = Instant::now();
             if due > now {
-                std::thread::sleep(due - now);
+                if pacing == Pacing::Spin {
+                    while Instant::now() < due {
+                        std::hint::spin_loop();
+                    }
+                } else {
+                    std::thread::sleep(due - now);
+                }
             } else {
                 behind = now - due > period;
             }
@@ -136,8 +187,8 @@ pub fn drive(
     calls
 }
 
-/// Runs `engine` over `seconds` of seeded noise in host calls of `host_frames`, paced or back to back
-/// as [`drive`] does, and summarizes the run.
+/// Runs `engine` over `seconds` of seeded noise in host calls of `host_frames`, issued as `pacing` says
+/// (see [`drive`]), and summarizes the run.
 ///
 /// Worker CPU is credited when a job completes and published by `process()`, so a job still running when
 /// the run ends is left out of `mean_load_pct` and one that began just before the run is counted whole;
@@ -145,7 +196,7 @@ pub fn drive(
 ///
 /// # Panics
 /// When `host_frames` exceeds the engine's `max_host_frames`.
-pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: usize, paced: bool) -> RunStats {
+pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: usize, pacing: Pacing) -> RunStats {
     let calls = ((seconds * f64::from(sample_rate_hz)) / host_frames as f64).ceil().max(1.0) as usize;
     let period = Duration::from_secs_f64(host_frames as f64 / f64::from(sample_rate_hz));
     let mut cpu = Vec::with_capacity(calls);
@@ -154,7 +205,7 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
     let workers_start = monitor.worker_cpu_seconds();
     let late_start = monitor.late_results();
     let process_start = process_cpu_seconds();
-    drive(engine, sample_rate_hz, calls, host_frames, paced, |_, t, _| {
+    drive(engine, sample_rate_hz, calls, host_frames, pacing, |_, t, _| {
         cpu.push(t.cpu_s);
         wall.push(t.wall_s);
         true
@@ -197,5 +248,51 @@ pub fn run(engine: &mut Engine, sample_rate_hz: u32, seconds: f64, host_frames: 
         late: monitor.late_results() - late_start,
         phase_calls,
         worst_phase_median_pct: pct(worst_phase),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use partita_core::{ImpulseResponse, PlanMode, Planner, Routing};
+
+    fn small_engine(block: usize) -> Engine {
+        let ir = ImpulseResponse::new(vec![partita_core::synth::decaying_noise(2048, 512.0, 3)], 48_000).unwrap();
+        let plan = Planner::new().block_frames(block).mode(PlanMode::Uniform).plan(2048).unwrap();
+        Engine::new(&plan, &ir, Routing::Mono, block).unwrap()
+    }
+
+    #[test]
+    fn paced_runs_follow_the_deadline_grid_and_unpaced_ones_do_not_wait() {
+        // 40 calls of 256 frames at 48 kHz: the last call's slot is 39 periods (208 ms) after the first,
+        // so a paced run cannot end sooner, whichever way it waits.
+        let (calls, block) = (40, 256);
+        let grid = Duration::from_secs_f64(39.0 * block as f64 / 48_000.0);
+        for pacing in [Pacing::Sleep, Pacing::Spin] {
+            let mut engine = small_engine(block);
+            let t0 = Instant::now();
+            let made = drive(&mut engine, 48_000, calls, block, pacing, |_, _, _| true);
+            assert_eq!(made, calls);
+            assert!(t0.elapsed() >= grid, "{pacing:?} ended after {:?}, before the grid's {grid:?}", t0.elapsed());
+        }
+        // Back to back, the same calls take far less than their audio time on any machine that runs
+        // this engine in real time (a 2048-tap mono engine at block 256 is a fraction of a percent).
+        let mut engine = small_engine(block);
+        let t0 = Instant::now();
+        drive(&mut engine, 48_000, calls, block, Pacing::None, |_, t, _| {
+            assert!(!t.behind, "unpaced calls are never behind a grid");
+            true
+        });
+        assert!(t0.elapsed() < grid, "unpaced run took {:?}", t0.elapsed());
+    }
+
+    #[test]
+    fn pacing_names_round_trip_and_unknown_ones_are_refused() {
+        for p in [Pacing::None, Pacing::Sleep, Pacing::Spin] {
+            assert_eq!(p.as_str().parse::<Pacing>(), Ok(p));
+        }
+        assert_eq!(Pacing::default(), Pacing::Sleep);
+        let err = "busy".parse::<Pacing>().unwrap_err();
+        assert!(err.contains("sleep, spin or none"), "{err}");
     }
 }

@@ -74,6 +74,25 @@ fn measure_reports_load_and_worst_callback() {
 }
 
 #[test]
+fn measure_reports_its_pacing() {
+    for pacing in ["sleep", "spin", "none"] {
+        let v = plan_json(&[
+            "--ir-seconds",
+            "0.2",
+            "--block",
+            "256",
+            "--measure",
+            "--measure-seconds",
+            "0.3",
+            "--pacing",
+            pacing,
+        ]);
+        assert_eq!(v["pacing"], pacing, "{v}");
+        assert!(v["measured_load_pct"].as_f64().unwrap() > 0.0, "{v}");
+    }
+}
+
+#[test]
 fn custom_levels_and_bad_input_give_clear_errors() {
     let v = plan_json(&["--ir-seconds", "0.1", "--block", "64", "--levels", "64x3,256x18"]);
     assert_eq!(v["levels"][1]["offset_frames"], 192);
@@ -83,6 +102,7 @@ fn custom_levels_and_bad_input_give_clear_errors() {
         (vec!["--block", "64"], "--ir-seconds"),
         (vec!["--ir-seconds", "1", "--channels", "3"], "--routing"),
         (vec!["--ir-seconds", "1", "--routing", "matrix:2y3"], "matrix:MxN"),
+        (vec!["--ir-seconds", "1", "--measure", "--pacing", "busy"], "sleep, spin or none"),
     ] {
         let out = Command::new(env!("CARGO_BIN_EXE_partita")).arg("plan").args(&args).output().unwrap();
         assert!(!out.status.success(), "{args:?} should fail");

@@ -216,7 +216,7 @@ pub fn run(args: DemoArgs) -> CmdResult {
             .cost_model(model.clone())
             .plan(ir.frames())?;
         let mut engine = Engine::new(&live, &ir, routing, live.block_frames)?;
-        let stats = measure::run(&mut engine, rate, LIVE_SECONDS, live.block_frames, false);
+        let stats = measure::run(&mut engine, rate, LIVE_SECONDS, live.block_frames, measure::Pacing::None);
         println!("live plan    block {}, {} levels (optimal, flop model):", live.block_frames, args.schedule);
         print_levels(&live);
         println!("latency      {} frames ({:.3} ms)", live.latency_frames(), ms(live.latency_frames()));

@@ -59,9 +59,15 @@ pub struct PlanArgs {
     /// Measure the machine again instead of using the cached calibration.
     #[arg(long)]
     recalibrate: bool,
-    /// Run the engine on this machine, paced on the real deadline grid, and report the measured load.
+    /// Run the engine on this machine, paced on the real deadline grid (see --pacing), and report the
+    /// measured load.
     #[arg(long)]
     measure: bool,
+    /// With --measure: how calls wait for their slot on the deadline grid. `sleep` (as live: the core may
+    /// run other work meanwhile), `spin` (the thread keeps its core: a diagnostic of what the sleeps cost
+    /// on this machine) or `none` (back to back, not paced).
+    #[arg(long, default_value = "sleep", value_name = "HOW")]
+    pacing: measure::Pacing,
     /// Audio seconds to run with --measure.
     #[arg(long, default_value_t = 3.0, value_name = "S")]
     measure_seconds: f64,
@@ -188,7 +194,8 @@ pub fn run(args: PlanArgs) -> CmdResult {
     };
     let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
     let memory = engine.memory_bytes();
-    let measured = args.measure.then(|| measure::run(&mut engine, rate, args.measure_seconds, plan.block_frames, true));
+    let measured =
+        args.measure.then(|| measure::run(&mut engine, rate, args.measure_seconds, plan.block_frames, args.pacing));
 
     let ms = |frames: usize| frames as f64 * 1000.0 / rate_f;
     if args.json {
@@ -229,6 +236,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
             out["worst_phase_median_pct"] = json!(m.worst_phase_median_pct);
             out["phase_callbacks"] = json!(m.phase_calls);
             out["measured_seconds"] = json!(m.audio_seconds);
+            out["pacing"] = json!(args.pacing.as_str());
             out["late_results"] = json!(m.late);
             out["worker_threads"] = json!(engine.worker_threads());
         }
@@ -274,11 +282,16 @@ pub fn run(args: PlanArgs) -> CmdResult {
     if let Some(m) = measured {
         println!(
             "measured     {:.3}% of one core (audio-thread and worker CPU; whole process {:.3}%) over {:.1} s of \
-             audio, paced; worst callback {:.1}% of the {:.3} ms deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%, \
+             audio, {}; worst callback {:.1}% of the {:.3} ms deadline (thread CPU; wall {:.1}%), p99.9 {:.1}%, \
              {} late results",
             m.mean_load_pct,
             m.process_load_pct,
             m.audio_seconds,
+            match args.pacing {
+                measure::Pacing::Sleep => "paced",
+                measure::Pacing::Spin => "paced by spinning (a diagnostic, not the live figure)",
+                measure::Pacing::None => "back to back (not paced)",
+            },
             m.max_pct,
             ms(plan.block_frames),
             m.max_wall_pct,
