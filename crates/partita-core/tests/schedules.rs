@@ -100,6 +100,19 @@ fn dropping_an_engine_with_busy_workers_ends_every_thread() {
 }
 
 #[test]
+fn a_worker_level_runs_every_routing_group_on_one_thread() {
+    // Plain stereo has two routing groups (L->L, R->R): each worker level still wakes one thread per
+    // release, not one per group. (The oracle grids check the merged jobs' output.)
+    let _serial = SERIAL.lock().unwrap_or_else(|e| e.into_inner());
+    let ir = random_ir(2, 20_000, 5);
+    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0).plan(20_000).unwrap();
+    let worker_levels = plan.levels.iter().filter(|l| l.schedule == Schedule::Workers).count();
+    assert!(worker_levels >= 2, "{:?}", plan.levels);
+    let engine = Engine::new(&plan, &ir, Routing::Stereo, 64).unwrap();
+    assert_eq!(engine.worker_threads(), worker_levels);
+}
+
+#[test]
 fn realtime_priority_is_optional_and_reported() {
     let _serial = SERIAL.lock().unwrap_or_else(|e| e.into_inner());
     let ir = random_ir(1, 5_000, 2);
