@@ -48,6 +48,9 @@ pub(crate) struct SlicedLevel {
     fs: FourStep,
     /// Each step with its cost and the IR slot it belongs to (`SHARED` for the input side).
     steps: Vec<(Step, u64, u8)>,
+    /// Per step: the index of the first later step with another tag, so that a job skips an IR slot's
+    /// steps it does not compute in one jump.
+    run_end: Vec<usize>,
     /// Cost of a job for one IR slot.
     total_cost: u64,
     /// Cost of the job running now (its IR slots).
@@ -146,10 +149,12 @@ impl SlicedLevel {
             steps.push((Step::Deliver { lo }, (outputs * CHUNK.min(n - lo)) as u64, SHARED));
         }
         let total_cost = job_cost(&steps, 1);
+        let run_end = run_ends(&steps);
         Self {
             runner,
             fs,
             steps,
+            run_end,
             total_cost,
             job_cost_now: total_cost,
             mask: 1,
@@ -198,10 +203,11 @@ impl SlicedLevel {
         let target = if self.slice >= period { total } else { total * self.slice / period };
         while self.cursor < self.steps.len() && self.spent < target {
             let (step, cost, tag) = self.steps[self.cursor];
-            self.cursor += 1;
             if tag != SHARED && self.mask & (1 << tag) == 0 {
+                self.cursor = self.run_end[self.cursor];
                 continue;
             }
+            self.cursor += 1;
             self.run_step(step, io.inputs, io.outputs, irs);
             self.spent += cost;
             self.last_cost += cost;
@@ -212,7 +218,7 @@ impl SlicedLevel {
             if tag == SHARED || self.mask & (1 << tag) != 0 {
                 break;
             }
-            self.cursor += 1;
+            self.cursor = self.run_end[self.cursor];
         }
         if self.cursor == self.steps.len() {
             self.running = false;
@@ -340,7 +346,29 @@ impl SlicedLevel {
 /// Tag of steps every job runs, whatever its IR slots.
 const SHARED: u8 = u8::MAX;
 
+/// For each step, the index of the first later step whose tag differs (the step count at the end).
+fn run_ends(steps: &[(Step, u64, u8)]) -> Vec<usize> {
+    let mut ends = vec![steps.len(); steps.len()];
+    for i in (0..steps.len().saturating_sub(1)).rev() {
+        ends[i] = if steps[i + 1].2 == steps[i].2 { ends[i + 1] } else { i + 1 };
+    }
+    ends
+}
+
 /// Cost of the steps a job for IR slots `mask` runs.
 fn job_cost(steps: &[(Step, u64, u8)], mask: SlotMask) -> u64 {
     steps.iter().filter(|s| s.2 == SHARED || mask & (1 << s.2) != 0).map(|s| s.1).sum()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn run_ends_point_past_each_run_of_one_tag() {
+        let tags = [SHARED, SHARED, 0, 0, 0, 1, 1, SHARED];
+        let steps: Vec<(Step, u64, u8)> = tags.iter().map(|&t| (Step::Begin, 1, t)).collect();
+        assert_eq!(run_ends(&steps), vec![2, 2, 5, 5, 5, 7, 7, 8]);
+        assert!(run_ends(&[]).is_empty());
+    }
 }
