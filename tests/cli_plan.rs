@@ -50,6 +50,22 @@ fn zero_latency_and_schedules_show_in_the_plan() {
         assert_eq!(l["schedule"], want, "{levels:?}");
     }
     assert!(levels.iter().filter(|l| l["schedule"] == "sync").count() >= 2, "{levels:?}");
+    // --min-sliced-frames: 0 slices every level above the block; the default keeps those below 2048 whole.
+    for (min, bound) in [("0", 65), ("2048", 2048)] {
+        let v = plan_json(&["--ir-seconds", "10", "--block", "64", "--schedule", "sliced", "--min-sliced-frames", min]);
+        let levels = v["levels"].as_array().unwrap();
+        for l in levels {
+            let want = if l["block_frames"].as_u64().unwrap() < bound { "sync" } else { "sliced" };
+            assert_eq!(l["schedule"], want, "--min-sliced-frames {min}: {levels:?}");
+        }
+    }
+    let v = plan_json(&["--ir-seconds", "10", "--block", "64", "--schedule", "sliced"]);
+    assert!(
+        v["levels"].as_array().unwrap().iter().any(|l| l["block_frames"].as_u64().unwrap() < 2048
+            && l["block_frames"].as_u64().unwrap() > 64
+            && l["schedule"] == "sync"),
+        "{v}"
+    );
 }
 
 #[test]

@@ -43,6 +43,10 @@ pub struct PlanArgs {
     /// longer callbacks when such a level completes); 0 puts every level above the block on a worker.
     #[arg(long, value_name = "N", default_value_t = 0)]
     min_worker_frames: usize,
+    /// With --schedule sliced: levels below this many frames stay in the callback whole (their job is
+    /// cheaper than slicing it); 0 slices every level above the block.
+    #[arg(long, value_name = "N", default_value_t = 2048)]
+    min_sliced_frames: usize,
     /// Uniform partitions instead of the optimal plan.
     #[arg(long)]
     uniform: bool,
@@ -163,6 +167,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         .zero_latency(args.zero_latency)
         .schedule(args.schedule)
         .min_worker_frames(args.min_worker_frames)
+        .min_sliced_frames(args.min_sliced_frames)
         .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
         .cost_model(model.clone())
         .shape(shape);
