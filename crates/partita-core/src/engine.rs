@@ -358,11 +358,15 @@ impl Engine {
         // release instead of one per group. Their hand-offs are chunked and their work spread, so the
         // staggering of groups that keeps big `sync` levels apart is not needed there. Measured side by
         // side on S1 (BENCHMARKS.md): about 10% less paced load for both schedules.
-        let merged = vec![groups.iter().fold((Vec::new(), Vec::new()), |(mut i, mut o), (gi, go)| {
-            i.extend_from_slice(gi);
-            o.extend_from_slice(go);
-            (i, o)
-        })];
+        // Groups without a path (an unused input or output) are left out, as below.
+        let merged = vec![groups.iter().filter(|(gi, go)| !gi.is_empty() && !go.is_empty()).fold(
+            (Vec::new(), Vec::new()),
+            |(mut i, mut o), (gi, go)| {
+                i.extend_from_slice(gi);
+                o.extend_from_slice(go);
+                (i, o)
+            },
+        )];
         let mut specs = Vec::new();
         let mut slots = Vec::new();
         for (li, level) in plan.levels.iter().enumerate() {
