@@ -85,8 +85,9 @@ pub enum Pacing {
     #[default]
     Sleep,
     /// On the real deadline grid, spinning until each call's slot: the thread keeps its core between
-    /// calls, as on a machine whose audio core has nothing else to run. A diagnostic beside `Sleep`:
-    /// the difference between the two is what the sleeps cost on this machine, not the engine's work.
+    /// calls as far as this OS is concerned (a virtual machine's host may still run other work on it).
+    /// A diagnostic beside `Sleep`: the difference between the two is what the sleeps cost on this
+    /// machine, not the engine's work.
     Spin,
 }
 
