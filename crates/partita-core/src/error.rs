@@ -184,6 +184,8 @@ pub enum EngineError {
     Spawn(String),
     /// The IR could not be prepared.
     Control(ControlError),
+    /// The initial mix does not fit the engine.
+    Mix(MixError),
 }
 
 impl fmt::Display for EngineError {
@@ -199,6 +201,7 @@ impl fmt::Display for EngineError {
             Self::MaxHostFramesZero => write!(f, "max_host_frames is 0; hosts call with at least 1 frame"),
             Self::Spawn(e) => write!(f, "could not start a worker thread: {e}"),
             Self::Control(e) => write!(f, "{e}"),
+            Self::Mix(e) => write!(f, "invalid mix: {e}"),
         }
     }
 }
@@ -209,6 +212,7 @@ impl std::error::Error for EngineError {
             Self::Plan(e) => Some(e),
             Self::Routing(e) => Some(e),
             Self::Control(e) => Some(e),
+            Self::Mix(e) => Some(e),
             _ => None,
         }
     }
@@ -217,6 +221,12 @@ impl std::error::Error for EngineError {
 impl From<PlanError> for EngineError {
     fn from(e: PlanError) -> Self {
         Self::Plan(e)
+    }
+}
+
+impl From<MixError> for EngineError {
+    fn from(e: MixError) -> Self {
+        Self::Mix(e)
     }
 }
 
@@ -316,3 +326,47 @@ impl fmt::Display for ControlError {
 }
 
 impl std::error::Error for ControlError {}
+
+/// Why a [`Mix`](crate::Mix) does not fit an engine.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum MixError {
+    /// A gain is NaN or infinite (or the output gain in dB overflows).
+    NotFinite {
+        /// Which parameter: `wet`, `dry` or `output gain`.
+        parameter: &'static str,
+    },
+    /// The pre-delay is longer than the engine was built for.
+    PreDelayTooLong {
+        /// Pre-delay asked for.
+        predelay_frames: usize,
+        /// The engine's bound (`EngineOptions::max_predelay_frames`).
+        max_predelay_frames: usize,
+    },
+    /// A dry signal or bypass on a shape without a dry path (M > 1 inputs to N != M outputs).
+    NoDryPath {
+        /// Engine inputs.
+        inputs: usize,
+        /// Engine outputs.
+        outputs: usize,
+    },
+}
+
+impl fmt::Display for MixError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::NotFinite { parameter } => write!(f, "the {parameter} is not a finite number; give a finite gain"),
+            Self::PreDelayTooLong { predelay_frames, max_predelay_frames } => write!(
+                f,
+                "a pre-delay of {predelay_frames} frames is longer than the engine's maximum of \
+                 {max_predelay_frames}; build it with a larger max_predelay_frames"
+            ),
+            Self::NoDryPath { inputs, outputs } => write!(
+                f,
+                "{inputs} inputs to {outputs} outputs have no dry signal (it needs as many inputs as outputs, \
+                 or one input); use dry 0 and no bypass"
+            ),
+        }
+    }
+}
+
+impl std::error::Error for MixError {}

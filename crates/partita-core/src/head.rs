@@ -60,6 +60,7 @@ impl Head {
         4 * (self.window.len() + self.sum.len())
     }
 
+    #[cfg(feature = "test-hooks")]
     /// Overwrites scratch with garbage (tests prove it does not matter).
     pub(crate) fn dirty(&mut self, value: f32) {
         self.window.fill(value);

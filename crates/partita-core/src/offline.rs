@@ -8,8 +8,8 @@
 //! time-invariant, so this overlap-add of segment convolutions equals the convolution of the whole
 //! signal up to f32 rounding (Oppenheim & Schafer, *Discrete-Time Signal Processing*, overlap-add).
 //!
-//! [`offline_plan`] gives the plan to use when latency does not matter; see it for the measurements
-//! behind its block size.
+//! [`offline_plan`] gives the plan to use when latency does not matter (the policy lives with the other
+//! planning code, in `plan/offline.rs`, and is re-exported here).
 //!
 //! ```
 //! use partita_core::{naive, offline, ImpulseResponse, Routing, Shape};
@@ -30,29 +30,16 @@ use std::ops::Range;
 use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::Mutex;
 
-use crate::cost::Shape;
 use crate::engine::Engine;
 use crate::error::{EngineError, PlanError};
 use crate::ir::ImpulseResponse;
 use crate::plan::{Plan, Schedule};
-use crate::planner::Planner;
 use crate::routing::Routing;
 
-/// Largest engine block [`offline_plan`] uses. Measured on the 2-core AMD EPYC development VM (60 s of
-/// stereo noise through stereo decaying-noise IRs, one thread, uniform plans, median of 5 interleaved
-/// runs, seconds): 0.5 s IR: 4096 0.063, 8192 0.060, 16384 0.060, 32768 0.065; 2 s IR: 8192 0.082,
-/// 16384 0.071, 32768 0.070, 65536 0.082; 10 s IR: 16384 0.223, 32768 0.180, 65536 0.154, 131072 0.145,
-/// 262144 0.157. The best block holds the IR in about four partitions; beyond 131072 the FFTs leave the
-/// cache and the cost rises again. `cargo bench --bench offline` repeats a block sweep (BENCHMARKS.md).
-pub const OFFLINE_MAX_BLOCK_FRAMES: usize = 1 << 17;
-
-/// Smallest engine block [`offline_plan`] uses, so a short IR still renders in big blocks (an FFT pair
-/// of 2048 points per 1024 frames costs about as much per frame as direct form for a 50-tap IR; the
-/// per-block bookkeeping is then negligible). A judgement, not a measurement.
-pub const OFFLINE_MIN_BLOCK_FRAMES: usize = 1024;
-
-/// Largest level the offline planner may open (the optimal mode's `max_level_frames`).
-pub const OFFLINE_MAX_LEVEL_FRAMES: usize = 1 << 17;
+pub use crate::plan::offline::{
+    offline_block_frames, offline_plan, offline_plan_with_block, offline_planner, OFFLINE_MAX_BLOCK_FRAMES,
+    OFFLINE_MAX_LEVEL_FRAMES, OFFLINE_MIN_BLOCK_FRAMES,
+};
 
 /// Frames per host call in [`render`] (or the plan's block, when larger): big calls keep the per-call
 /// overhead out of the profile.
@@ -118,37 +105,6 @@ impl From<PlanError> for RenderError {
     fn from(e: PlanError) -> Self {
         Self::Engine(EngineError::Plan(e))
     }
-}
-
-/// The engine block [`offline_plan`] picks for an IR of `ir_frames` taps: the power of two at or above a
-/// quarter of the IR, between [`OFFLINE_MIN_BLOCK_FRAMES`] and [`OFFLINE_MAX_BLOCK_FRAMES`], so the IR
-/// fits in about four partitions. Offline, latency costs nothing, and the multiply-accumulate over a
-/// long frequency-domain delay line streams every partition from memory once per block, so fewer, larger
-/// partitions win until the FFTs themselves leave the cache (measurements at
-/// [`OFFLINE_MAX_BLOCK_FRAMES`]).
-pub fn offline_block_frames(ir_frames: usize) -> usize {
-    ir_frames.div_ceil(4).next_power_of_two().clamp(OFFLINE_MIN_BLOCK_FRAMES, OFFLINE_MAX_BLOCK_FRAMES)
-}
-
-/// The planner [`offline_plan`] uses: optimal layout, block [`offline_block_frames`], synchronous levels,
-/// block latency (latency is irrelevant offline and [`render`] removes it), levels up to
-/// [`OFFLINE_MAX_LEVEL_FRAMES`]. Give it a measured [`CostModel`](crate::CostModel) with
-/// [`Planner::cost_model`] to plan for this machine instead of the flop model.
-pub fn offline_planner(ir_frames: usize) -> Planner {
-    Planner::new()
-        .block_frames(offline_block_frames(ir_frames))
-        .zero_latency(false)
-        .schedule(Schedule::Sync)
-        .max_level_frames(OFFLINE_MAX_LEVEL_FRAMES)
-}
-
-/// The fastest plan we know for offline work on an IR of `ir_frames` taps and an engine of `shape`
-/// (see [`offline_planner`]). Allocates (the plan's level list).
-///
-/// # Errors
-/// [`PlanError::IrFramesZero`] when `ir_frames` is 0.
-pub fn offline_plan(ir_frames: usize, shape: Shape) -> Result<Plan, PlanError> {
-    offline_planner(ir_frames).shape(shape).plan(ir_frames)
 }
 
 /// Renders the full convolution of `inputs` through `ir` with `routing`. Allocates: the returned outputs,

@@ -5,6 +5,10 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::PlanError;
 
+pub(crate) mod cost;
+pub(crate) mod offline;
+pub(crate) mod planner;
+
 /// Where and when a level's work runs.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]

@@ -27,8 +27,8 @@ use std::thread::{JoinHandle, Thread};
 use std::time::{Duration, Instant};
 
 use crate::denormal::DenormalGuard;
-use crate::fdl::{LevelIo, LevelIr, LevelRunner, SlotMask};
 use crate::kernel::Kernel;
+use crate::level::fdl::{LevelIo, LevelIr, LevelRunner, SlotMask};
 
 /// How long the audio thread waits for a late worker result before going on without it.
 pub const LATE_SPIN: Duration = Duration::from_micros(20);
@@ -433,6 +433,7 @@ impl WorkerLevel {
         self.memory
     }
 
+    #[cfg(feature = "test-hooks")]
     pub(crate) fn set_test_delay(&self, delay: Duration) {
         self.shared.delay_micros.store(delay.as_micros() as u64, Ordering::Relaxed);
     }

@@ -1,8 +1,8 @@
 //! The partition planner: uniform, optimal (dynamic programme over offset and level size) and custom
 //! layouts, each checked against the offset rule of its schedule.
 
-use crate::cost::{CostModel, Shape};
 use crate::error::PlanError;
+use crate::plan::cost::{CostModel, Shape};
 use crate::plan::{Level, Plan, Schedule};
 
 /// Which layout the planner produces.

@@ -68,7 +68,7 @@ pub(crate) struct LevelIo<'a> {
 }
 
 /// What one output of a group sums: (index into the group's inputs, index into the group's IR spectra).
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub(crate) struct OutputTerms {
     pub(crate) output: usize,
     pub(crate) terms: Vec<(usize, usize)>,
@@ -181,7 +181,7 @@ impl std::fmt::Debug for LevelRunner {
 }
 
 /// Geometry of a level runner.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(crate) struct LevelShape {
     pub(crate) n: usize,
     pub(crate) partitions: usize,
@@ -451,6 +451,7 @@ impl LevelRunner {
         self.newest = 0;
     }
 
+    #[cfg(feature = "test-hooks")]
     /// Overwrites scratch with garbage (tests prove it does not matter).
     pub(crate) fn dirty(&mut self, value: f32) {
         self.time.fill(value);

@@ -80,6 +80,7 @@ impl FourStep {
         }
     }
 
+    #[cfg(feature = "test-hooks")]
     /// Overwrites scratch with garbage (tests prove it does not matter).
     pub(crate) fn dirty(&mut self, value: f32) {
         self.column.fill(Complex32::new(value, value));

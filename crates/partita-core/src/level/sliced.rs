@@ -7,9 +7,9 @@
 use realfft::num_complex::Complex32;
 use rustfft::FftPlanner;
 
-use crate::fdl::{LevelIo, LevelIr, LevelRunner, SlotMask};
-use crate::fourstep::FourStep;
 use crate::kernel::Kernel;
+use crate::level::fdl::{LevelIo, LevelIr, LevelRunner, SlotMask};
+use crate::level::fourstep::FourStep;
 use crate::ring::{prefaulted, TimeRing};
 
 /// Samples copied or bins split per step.
@@ -313,6 +313,7 @@ impl SlicedLevel {
         self.runner.n()
     }
 
+    #[cfg(feature = "test-hooks")]
     /// Overwrites scratch with garbage. While a job runs, its buffers carry state from slice to slice,
     /// so only the transform scratch and the copy buffer are scratch then.
     pub(crate) fn dirty(&mut self, value: f32) {
@@ -332,11 +333,13 @@ impl SlicedLevel {
         self.runner.memory_bytes() + 8 * (self.packed.len() + self.work.len() + self.done.len() + self.spec.len())
     }
 
+    #[cfg(feature = "test-hooks")]
     /// Level period in engine blocks.
     pub(crate) fn period_blocks(&self) -> u64 {
         self.runner.period_blocks
     }
 
+    #[cfg(feature = "test-hooks")]
     /// Cost units of one whole job (one IR slot).
     pub(crate) fn job_cost(&self) -> u64 {
         self.total_cost
