@@ -30,7 +30,7 @@ use std::ops::Range;
 use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::Mutex;
 
-use crate::engine::Engine;
+use crate::engine::{Engine, EngineOptions, Mix};
 use crate::error::{EngineError, PlanError};
 use crate::ir::ImpulseResponse;
 use crate::plan::{Plan, Schedule};
@@ -139,6 +139,44 @@ pub fn render<X: AsRef<[f32]> + Sync>(
     threads: usize,
     progress: Option<&(dyn Fn(u64, u64) + Sync)>,
 ) -> Result<Vec<Vec<f32>>, RenderError> {
+    render_with_mix(plan, ir, routing, &Mix::default(), inputs, threads, progress)
+}
+
+/// [`render`] through the engine's own output mix ([`Mix`]: wet, dry aligned with the convolution,
+/// output gain, pre-delay, bypass), exactly as a live engine started at `mix` would play it with its
+/// latency removed. Allocates as [`render`] does.
+///
+/// Each output is `frames + ir.frames() + mix.predelay_frames - 1` long: the pre-delay moves the whole
+/// wet signal later, so the tail grows by as much. With the default mix this is [`render`], bit for bit.
+///
+/// ```
+/// use partita_core::{naive, offline, ImpulseResponse, Mix, Routing, Shape};
+///
+/// let taps = vec![1.0, 0.5, 0.25];
+/// let ir = ImpulseResponse::new(vec![taps.clone()], 48_000)?;
+/// let plan = offline::offline_plan(ir.frames(), Shape::MONO)?;
+/// let x = vec![1.0f32, 0.0, 0.0, 0.0];
+/// let mix = Mix { wet: 0.5, dry: 1.0, predelay_frames: 2, ..Mix::default() };
+/// let y = offline::render_with_mix(&plan, &ir, Routing::Mono, &mix, &[x], 1, None)?;
+/// // The dry impulse at frame 0, the halved IR two frames later; 4 + 3 + 2 - 1 frames in all.
+/// let want = [1.0, 0.0, 0.5, 0.25, 0.125, 0.0, 0.0, 0.0];
+/// assert_eq!(y[0].len(), want.len());
+/// assert!(y[0].iter().zip(want).all(|(a, b)| (a - b).abs() < 1e-6));
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
+///
+/// # Errors
+/// As [`render`], and [`RenderError::Engine`] with [`EngineError::Mix`] when the mix does not fit the
+/// routing (a dry signal or bypass on a shape without a dry path, a non-finite gain).
+pub fn render_with_mix<X: AsRef<[f32]> + Sync>(
+    plan: &Plan,
+    ir: &ImpulseResponse,
+    routing: Routing,
+    mix: &Mix,
+    inputs: &[X],
+    threads: usize,
+    progress: Option<&(dyn Fn(u64, u64) + Sync)>,
+) -> Result<Vec<Vec<f32>>, RenderError> {
     let routes = routing.resolve(ir.channels()).map_err(EngineError::from)?;
     if inputs.len() != routes.inputs {
         return Err(RenderError::InputCount { expected: routes.inputs, got: inputs.len() });
@@ -153,8 +191,11 @@ pub fn render<X: AsRef<[f32]> + Sync>(
     }
     let host_frames = RENDER_HOST_FRAMES.max(plan.block_frames);
     // Built first, on the calling thread, so every set-up error is reported before any work starts.
-    let first = Engine::new(&plan, ir, routing, host_frames)?;
-    let ir_frames = ir.frames();
+    let options =
+        EngineOptions { max_predelay_frames: mix.predelay_frames, mix: *mix, ..EngineOptions::new(host_frames) };
+    let first = Engine::with_options(&plan, ir, routing, options)?;
+    // The response of the whole system (pre-delay, then the IR) is what each segment must let ring out.
+    let ir_frames = ir.frames() + mix.predelay_frames;
     let latency = first.latency_frames();
     let outputs = first.outputs();
 
@@ -202,7 +243,7 @@ pub fn render<X: AsRef<[f32]> + Sync>(
                 .map(|(r, mut own)| {
                     let (r, plan, segment) = (r.clone(), &plan, &segment);
                     scope.spawn(move || -> Result<(usize, Vec<Vec<f32>>), RenderError> {
-                        let mut engine = Engine::new(plan, ir, routing, host_frames)?;
+                        let mut engine = Engine::with_options(plan, ir, routing, options)?;
                         let tail = segment(&mut engine, r.clone(), &mut own);
                         Ok((r.end, tail))
                     })

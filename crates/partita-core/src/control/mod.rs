@@ -49,8 +49,7 @@ use crate::prepared::{PreparedIr, SpectraRecipe};
 
 pub(crate) mod wire;
 
-pub use crate::engine::PARAM_RAMP_SECONDS;
-pub use wire::{Command, Event, FadeState, Monitor, Refused, Status, SwapReport};
+pub use wire::{Command, Event, FadeState, Monitor, Refused, Status, SwapReport, PARAM_RAMP_SECONDS};
 use wire::{ControlEnds, StatusCells, SwapRequest};
 
 /// The control side of an engine: `Send`, for a non-real-time thread. Prepare IRs, swap them in, change

@@ -10,6 +10,9 @@ use ringbuf::{HeapCons, HeapProd, HeapRb};
 
 use crate::prepared::{IrSet, PreparedIr};
 
+/// Seconds over which gains, bypass and pre-delay changes ramp (linearly, per sample).
+pub const PARAM_RAMP_SECONDS: f64 = 0.010;
+
 /// Swaps that may wait in the queue.
 pub(crate) const SWAP_QUEUE: usize = 4;
 /// Commands that may wait in the queue.
@@ -19,7 +22,7 @@ const COMMAND_QUEUE: usize = 64;
 const EVENT_QUEUE: usize = 256;
 
 /// A parameter change or action for the audio thread. Applied at the next engine block boundary;
-/// gains, bypass and pre-delay then ramp over [`PARAM_RAMP_SECONDS`](crate::control::PARAM_RAMP_SECONDS).
+/// gains, bypass and pre-delay then ramp over [`PARAM_RAMP_SECONDS`].
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Command {
     /// Linear gain of the convolved (wet) signal; 1 by default.

@@ -5,14 +5,11 @@
 //!
 //! Runs on the audio thread; [`OutputStage`] owns every buffer it touches.
 
-use crate::control::wire::Command;
+use crate::control::wire::{Command, PARAM_RAMP_SECONDS};
 use crate::error::MixError;
 use crate::head::Head;
 use crate::prepared::IrSet;
 use crate::ring::TimeRing;
-
-/// Seconds over which gains, bypass and pre-delay changes ramp (linearly, per sample).
-pub const PARAM_RAMP_SECONDS: f64 = 0.010;
 
 /// The mix parameters of an engine's output, as plain values (the same type everywhere: the initial
 /// settings in [`EngineOptions::mix`](crate::EngineOptions::mix), the offline render's

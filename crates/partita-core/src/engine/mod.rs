@@ -31,7 +31,7 @@ pub(crate) mod reset;
 pub(crate) mod slots;
 pub(crate) mod swap;
 
-pub use mix::{Mix, PARAM_RAMP_SECONDS};
+pub use mix::Mix;
 use mix::{OutputStage, WetSources};
 use reset::{ResetPhase, SweepItems, SweepStep, SWEEP_SAMPLES};
 use slots::SlotLayout;

@@ -1,5 +1,5 @@
 //! The offline plan policy: the plan to use when latency does not matter (files, bounces, batch work).
-//! [`crate::offline::render`] runs it; the `render` and `demo` commands choose their plans here.
+//! The offline render (`offline::render`) runs it; the `render` and `demo` commands choose their plans here.
 
 use crate::error::PlanError;
 use crate::plan::cost::Shape;
@@ -30,7 +30,7 @@ pub fn offline_block_frames(ir_frames: usize) -> usize {
 }
 
 /// The planner [`offline_plan`] uses: optimal layout, block [`offline_block_frames`], synchronous levels,
-/// block latency (latency is irrelevant offline and [`render`](crate::offline::render) removes it), levels up to
+/// block latency (latency is irrelevant offline and the offline render removes it), levels up to
 /// [`OFFLINE_MAX_LEVEL_FRAMES`]. Give it a measured [`CostModel`](crate::CostModel) with
 /// [`Planner::cost_model`] to plan for this machine instead of the flop model.
 pub fn offline_planner(ir_frames: usize) -> Planner {
