@@ -1,5 +1,5 @@
 //! Input that decays into the subnormal range (DESIGN.md T9; the load figure is a bench case, see
-//! BENCHMARKS.md). Here: the output stays correct while the input is normal, carries no subnormal value
+//! docs/benchmarks/control.md). Here: the output stays correct while the input is normal, carries no subnormal value
 //! once the input is subnormal (flush-to-zero is on in `process()` and in every worker), and the
 //! caller's floating-point mode is back after each call.
 

@@ -110,9 +110,8 @@ impl Control {
     }
 
     /// Prepares `ir` for this engine: checks it and computes every level's spectra. Allocates; run it
-    /// off the audio thread. Cost: one forward FFT per partition and IR channel; for a 10 s stereo IR
-    /// planned at block 64, 7.1-7.3 ms (median) on a 2-vCPU Intel Xeon VM (`cargo bench --bench
-    /// control`, BENCHMARKS.md).
+    /// off the audio thread. Cost: one forward FFT per partition and IR channel (`cargo bench --bench
+    /// control` measures it; docs/benchmarks/control.md has the figures).
     ///
     /// # Errors
     /// [`ControlError`] when the IR has a different channel count (a different routing), another sample

@@ -115,10 +115,8 @@ impl Planner {
     /// the block goes to a worker). Keeping small levels in the callback saves a worker wake-up per level
     /// period and the larger offset a worker level needs (s >= 2N - B instead of N - B), which costs
     /// extra partitions below it, so the mean load drops; but every callback that completes such a level
-    /// carries its whole job, so the callback-time tail grows. Measured for S1 (10 s stereo IR, block
-    /// 64, paced, `partita plan --min-worker-frames`, BENCHMARKS.md) with 1024 against 0: mean load of
-    /// all threads 1.23-1.35% against 1.20-1.89%, callback p99.9 4.9-14.7% against 3.3-6.9% of the
-    /// deadline.
+    /// carries its whole job, so the callback-time tail grows. The measured trade-off (S1, paced, `partita
+    /// plan --min-worker-frames`) is in docs/benchmarks/log.md.
     pub fn min_worker_frames(mut self, frames: usize) -> Self {
         self.min_worker_frames = frames;
         self
