@@ -14,9 +14,9 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::{Duration, Instant};
 
 use clap::Args;
-use partita_core::{CostModel, Engine, EngineOptions, Kernel, Planner, Schedule, Shape};
+use partita_core::{CostModel, Engine, EngineOptions, Kernel, Mix, Planner, Schedule, Shape};
 use partita_device::{
-    Ceiling, DeviceOptions, DeviceSelector, EngineSide, LiveDevices, Mix, SafetyOptions, Stats, StreamOptions,
+    Ceiling, DeviceOptions, DeviceSelector, EngineSide, LiveDevices, SafetyOptions, Stats, StreamOptions,
 };
 use partita_io::{load_ir, read_wav_info, IrOptions, Layout, Normalize};
 use serde_json::json;
@@ -248,7 +248,9 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     } else {
         planner.plan(plan_frames)?
     };
-    let options = EngineOptions { realtime_workers: args.realtime_workers, ..EngineOptions::new(4096) };
+    // The stream starts at its wet/dry settings, without a ramp; the engine's own mixer is the only one.
+    let mix = Mix { wet: args.wet as f32, dry: args.dry as f32, ..Mix::default() };
+    let options = EngineOptions { realtime_workers: args.realtime_workers, mix, ..EngineOptions::new(4096) };
     let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
     let mut control = engine.control().ok_or("the engine's control handle was taken")?;
     // The IR not playing, prepared and ready to hand over; it comes back when swapped out.
@@ -265,7 +267,6 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             ceiling: if args.hard_clip { Ceiling::Hard } else { Ceiling::Soft },
             ..SafetyOptions::default()
         },
-        mix: Mix { wet: args.wet as f32, dry: args.dry as f32 },
         ..StreamOptions::default()
     };
     install_signal_handlers();
@@ -310,6 +311,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     let deadline = args.seconds.map(Duration::from_secs_f64);
     let mut last_status = Instant::now();
     let mut fault = None;
+    let mut bypass = false;
     loop {
         std::thread::sleep(Duration::from_millis(20));
         if let Some(f) = live.poll_fault() {
@@ -320,8 +322,11 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             break;
         }
         if TOGGLE_BYPASS.swap(false, Ordering::SeqCst) {
-            let h = live.handle();
-            h.set_bypass(!h.bypass());
+            match control.send(partita_core::Command::Bypass(!bypass)) {
+                Ok(()) => bypass = !bypass,
+                Err(_) if !control.has_dry() => eprintln!("\nSIGUSR1: this routing has no dry signal to bypass to"),
+                Err(_) => eprintln!("\nSIGUSR1: the engine's command queue is full; try again"),
+            }
         }
         if UNMUTE.swap(false, Ordering::SeqCst) {
             live.handle().unmute();
@@ -357,7 +362,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             if let Some(m) = s.muted {
                 line.push_str(&format!(" | MUTED: {m}"));
             }
-            if live.handle().bypass() {
+            if bypass {
                 line.push_str(" | BYPASS");
             }
             let cs = control.status();

@@ -2,19 +2,20 @@
 //!
 //! cpal has no duplex stream, so a live stream is two: the capture side ([`CaptureSide`], run by the
 //! input stream's callback) and the playback side ([`PlaybackSide`], the output stream's), joined by a
-//! `ringbuf` single-producer single-consumer queue of interleaved f32 frames. The engine, the wet/dry
-//! mix and the [safety stage](crate::safety) run on one side ([`EngineSide`]); the ring carries engine
+//! `ringbuf` single-producer single-consumer queue of interleaved f32 frames. The engine (whose own
+//! output mix the caller drives through its [`Control`](partita_core::Control) handle) and the
+//! [safety stage](crate::safety) run on one side ([`EngineSide`]); the ring carries engine
 //! inputs (engine on the playback side) or finished output frames (engine on the capture side).
 //!
 //! Per callback, with no allocation, lock, I/O or wait: convert the device format to f32, map device
 //! channels to engine channels, replace non-finite input by 0 (counted), push or pop whole frames,
 //! prime the ring, correct drift ([`crate::drift`]), run the engine in chunks of at most its
-//! `max_host_frames`, mix, apply the safety stage, meter, convert back, and time the callback (wall
+//! `max_host_frames`, apply the safety stage, meter, convert back, and time the callback (wall
 //! clock against its period for the overrun count, thread CPU clock for the load).
 
 use std::sync::atomic::Ordering::Relaxed;
 use std::sync::Arc;
-use std::time::{Duration, Instant};
+use std::time::Instant;
 
 use partita_core::{Engine, Monitor};
 use ringbuf::traits::{Consumer, Observer, Producer, Split};
@@ -25,7 +26,7 @@ use crate::convert::{with_samples, DeviceSample};
 use crate::drift::{Correction, DriftOptions, DriftTracker};
 use crate::error::DeviceError;
 use crate::safety::{SafetyOptions, SafetyStage};
-use crate::stats::{Fault, Peaks, Shared, Stats};
+use crate::stats::{BridgeCells, Fault, Peaks, Stats};
 
 /// The most engine inputs or outputs a bridge handles.
 pub const MAX_ENGINE_CHANNELS: usize = 32;
@@ -43,22 +44,6 @@ pub enum EngineSide {
     Capture,
     /// In the output stream's callback; the ring carries engine input frames.
     Playback,
-}
-
-/// Wet and dry gains (linear). The dry signal is delayed by the engine's latency so that the mix is
-/// the convolution with `wet * h + dry * delta`.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Mix {
-    /// Gain of the convolved signal (default 1).
-    pub wet: f32,
-    /// Gain of the unprocessed input (default 0).
-    pub dry: f32,
-}
-
-impl Default for Mix {
-    fn default() -> Self {
-        Self { wet: 1.0, dry: 0.0 }
-    }
 }
 
 /// How a [`Bridge`] is put together.
@@ -83,15 +68,14 @@ pub struct BridgeOptions {
     pub ring_frames: usize,
     /// The safety stage.
     pub safety: SafetyOptions,
-    /// Initial wet/dry mix.
-    pub mix: Mix,
     /// Drift correction settings.
     pub drift: DriftOptions,
 }
 
 impl BridgeOptions {
     /// Defaults for a stream at `sample_rate_hz` with the given device channel counts: engine on the
-    /// capture side, no margin, a ring of 16384 frames, default safety and mix.
+    /// capture side, no margin, a ring of 16384 frames, default safety. The mix is the engine's own
+    /// ([`EngineOptions::mix`](partita_core::EngineOptions::mix) and [`Control`](partita_core::Control) commands).
     pub fn new(sample_rate_hz: u32, device_inputs: usize, device_outputs: usize) -> Self {
         Self {
             sample_rate_hz,
@@ -102,7 +86,6 @@ impl BridgeOptions {
             margin_frames: 0,
             ring_frames: 16_384,
             safety: SafetyOptions::default(),
-            mix: Mix::default(),
             drift: DriftOptions::default(),
         }
     }
@@ -119,80 +102,29 @@ pub struct CallbackTime {
     pub device_delay_ns: u64,
 }
 
-/// A fixed delay line (the dry path's alignment with the engine's latency).
-#[derive(Debug)]
-struct DelayLine {
-    buf: Vec<f32>,
-    pos: usize,
-}
-
-impl DelayLine {
-    fn new(frames: usize) -> Self {
-        Self { buf: vec![0.0; frames], pos: 0 }
-    }
-
-    fn run(&mut self, input: &[f32], output: &mut [f32]) {
-        if self.buf.is_empty() {
-            output.copy_from_slice(input);
-            return;
-        }
-        for (x, y) in input.iter().zip(output.iter_mut()) {
-            *y = self.buf[self.pos];
-            self.buf[self.pos] = *x;
-            self.pos += 1;
-            if self.pos == self.buf.len() {
-                self.pos = 0;
-            }
-        }
-    }
-
-    fn clear(&mut self) {
-        self.buf.fill(0.0);
-    }
-}
-
-/// Engine, mix and safety stage: the processing one side runs.
+/// Engine and safety stage: the processing one side runs, per chunk.
 #[derive(Debug)]
 struct Stage {
     engine: Engine,
     outs: Vec<Vec<f32>>,
-    dry_src: Vec<usize>,
-    dry_lines: Vec<DelayLine>,
-    dry_buf: Vec<Vec<f32>>,
-    wet: f32,
-    dry: f32,
-    /// Largest gain change per frame (a 20 ms ramp from 0 to 1).
-    ramp_per_frame: f32,
     safety: SafetyStage,
 }
 
 impl Stage {
     fn new(engine: Engine, chunk: usize, options: &BridgeOptions) -> Self {
-        let m = engine.inputs();
-        let n = engine.outputs();
-        let latency = engine.latency_frames();
         Self {
-            outs: vec![vec![0.0; chunk]; n],
-            dry_src: (0..n).map(|o| o.min(m - 1)).collect(),
-            dry_lines: (0..m).map(|_| DelayLine::new(latency)).collect(),
-            dry_buf: vec![vec![0.0; chunk]; m],
-            wet: options.mix.wet,
-            dry: options.mix.dry,
-            ramp_per_frame: 1.0 / (0.02 * options.sample_rate_hz as f32),
+            outs: vec![vec![0.0; chunk]; engine.outputs()],
             safety: SafetyStage::new(&options.safety, options.sample_rate_hz),
             engine,
         }
     }
 
     /// Runs `len` frames of `ins` (planar, one per engine input) into `self.outs`.
-    fn run(&mut self, ins: &[Vec<f32>], len: usize, shared: &Shared) {
+    fn run(&mut self, ins: &[Vec<f32>], len: usize, shared: &BridgeCells) {
         let m = ins.len();
         let n = self.outs.len();
         if shared.unmute.swap(false, Relaxed) {
             self.engine.reset();
-            for d in &mut self.dry_lines {
-                d.clear();
-            }
             self.safety.unmute();
             shared.mute_reason.store(0, Relaxed);
         }
@@ -209,31 +141,7 @@ impl Stage {
             // max_host_frames. On error the engine zeroes the outputs, which is safe.
             let _ = self.engine.process(&in_refs[..m], &mut out_refs[..n]);
         }
-        for (line, (x, y)) in self.dry_lines.iter_mut().zip(ins.iter().zip(self.dry_buf.iter_mut())) {
-            line.run(&x[..len], &mut y[..len]);
-        }
-        let (wet_target, dry_target) = if shared.bypass.load(Relaxed) {
-            (0.0, 1.0)
-        } else {
-            (f32::from_bits(shared.wet_bits.load(Relaxed)), f32::from_bits(shared.dry_bits.load(Relaxed)))
-        };
-        let (w0, d0) = (self.wet, self.dry);
-        let step =
-            |from: f32, to: f32| (to - from).clamp(-self.ramp_per_frame * len as f32, self.ramp_per_frame * len as f32);
-        let (w1, d1) = (w0 + step(w0, wet_target), d0 + step(d0, dry_target));
-        let unity = w0 == 1.0 && w1 == 1.0 && d0 == 0.0 && d1 == 0.0;
-        if !unity {
-            let inv = 1.0 / len as f32;
-            for (o, y) in self.outs.iter_mut().enumerate() {
-                let dry = &self.dry_buf[self.dry_src[o]];
-                for (i, v) in y[..len].iter_mut().enumerate() {
-                    let t = (i + 1) as f32 * inv;
-                    *v = (w0 + (w1 - w0) * t) * *v + (d0 + (d1 - d0) * t) * dry[i];
-                }
-            }
-        }
-        self.wet = w1;
-        self.dry = d1;
+        #[cfg(feature = "test-hooks")]
         if shared.inject_nonfinite.swap(false, Relaxed) {
             self.outs[0][len / 2] = f32::NAN;
         }
@@ -251,7 +159,7 @@ impl Stage {
                 peak = peak.max(v.abs());
             }
         }
-        Shared::raise_peak(&shared.out_peak, peak);
+        BridgeCells::raise_peak(&shared.out_peak, peak);
     }
 }
 
@@ -269,7 +177,7 @@ impl CallbackTimer {
     }
 
     #[inline]
-    fn finish(self, shared: &Shared, frames: usize) {
+    fn finish(self, shared: &BridgeCells, frames: usize) {
         let cpu = partita_core::thread_cpu_seconds() - self.cpu_s;
         let wall = self.wall.elapsed().as_secs_f64();
         let period = frames as f64 / f64::from(shared.rate_hz);
@@ -283,11 +191,12 @@ impl CallbackTimer {
     }
 }
 
-/// Spins for the test stall hook (never set outside tests).
-fn test_stall(shared: &Shared) {
+/// Spins for the test stall hook (feature `test-hooks`).
+#[cfg(feature = "test-hooks")]
+fn test_stall(shared: &BridgeCells) {
     let ns = shared.stall_ns.swap(0, Relaxed);
     if ns > 0 {
-        let until = Instant::now() + Duration::from_nanos(ns);
+        let until = Instant::now() + std::time::Duration::from_nanos(ns);
         while Instant::now() < until {
             std::hint::spin_loop();
         }
@@ -297,7 +206,7 @@ fn test_stall(shared: &Shared) {
 /// The input stream's per-callback work: format conversion, channel mapping, the engine (on
 /// [`EngineSide::Capture`]), the ring push. See the crate docs.
 pub struct CaptureSide {
-    shared: Arc<Shared>,
+    shared: Arc<BridgeCells>,
     prod: HeapProd<f32>,
     width: usize,
     device_channels: usize,
@@ -311,7 +220,7 @@ pub struct CaptureSide {
 /// The output stream's per-callback work: the ring pop with priming and drift correction, the engine
 /// (on [`EngineSide::Playback`]), channel mapping and conversion. See the crate docs.
 pub struct PlaybackSide {
-    shared: Arc<Shared>,
+    shared: Arc<BridgeCells>,
     cons: HeapCons<f32>,
     width: usize,
     device_channels: usize,
@@ -361,7 +270,7 @@ impl std::fmt::Debug for PlaybackSide {
 /// is wait-free and may be called from any thread.
 #[derive(Debug, Clone)]
 pub struct BridgeHandle {
-    shared: Arc<Shared>,
+    shared: Arc<BridgeCells>,
     engine: Monitor,
     origin: Instant,
 }
@@ -378,8 +287,8 @@ pub struct Bridge {
 }
 
 impl Bridge {
-    /// Builds a bridge around `engine`. Allocates every buffer: the ring, the scratch for chunks of
-    /// `engine.max_host_frames()` frames, the dry delay lines.
+    /// Builds a bridge around `engine`. Allocates every buffer: the ring and the scratch for chunks of
+    /// `engine.max_host_frames()` frames.
     ///
     /// # Errors
     /// [`DeviceError::TooManyChannels`] beyond [`MAX_ENGINE_CHANNELS`], [`DeviceError::ChannelMap`] when
@@ -414,8 +323,7 @@ impl Bridge {
             EngineSide::Capture => n,
             EngineSide::Playback => m,
         };
-        let shared =
-            Arc::new(Shared::new(options.sample_rate_hz, engine.latency_frames(), options.mix.wet, options.mix.dry));
+        let shared = Arc::new(BridgeCells::new(options.sample_rate_hz, engine.latency_frames()));
         let handle = BridgeHandle { shared: Arc::clone(&shared), engine: engine.monitor(), origin: Instant::now() };
         let (prod, cons) = HeapRb::<f32>::new(options.ring_frames.max(chunk) * width).split();
         let stage = Box::new(Stage::new(engine, chunk, options));
@@ -510,7 +418,7 @@ impl CaptureSide {
         if bad > 0 {
             shared.nonfinite_inputs.fetch_add(bad, Relaxed);
         }
-        Shared::raise_peak(&shared.in_peak, peak);
+        BridgeCells::raise_peak(&shared.in_peak, peak);
         shared.store_last_input(time.now_ns, frames);
         timer.finish(shared, frames);
     }
@@ -532,8 +440,9 @@ fn interleave(planar: &[Vec<f32>], out: &mut [f32], len: usize) {
 
 impl PlaybackSide {
     /// One output callback: fills `data`, interleaved frames of the device's channels. Never allocates.
-    pub fn render<T: DeviceSample>(&mut self, data: &mut [T], time: CallbackTime) {
+    pub fn play<T: DeviceSample>(&mut self, data: &mut [T], time: CallbackTime) {
         let timer = CallbackTimer::start();
+        #[cfg(feature = "test-hooks")]
         test_stall(&self.shared);
         let c = self.device_channels;
         let frames = data.len() / c;
@@ -661,7 +570,7 @@ impl PlaybackSide {
                 None => {
                     let buf = &self.frames_buf;
                     let peak = buf[..len * w].iter().fold(0.0f32, |p, v| p.max(v.abs()));
-                    Shared::raise_peak(&shared.out_peak, peak);
+                    BridgeCells::raise_peak(&shared.out_peak, peak);
                     write_device(out, c, &self.map, len, |o, i| buf[i * w + o]);
                 }
             }
@@ -670,9 +579,9 @@ impl PlaybackSide {
         timer.finish(shared, frames);
     }
 
-    /// [`render`](Self::render) for cpal's format-tagged buffer.
-    pub fn render_data(&mut self, data: &mut cpal::Data, time: CallbackTime) {
-        with_samples!(data, as_slice_mut, |s| self.render(s, time));
+    /// [`play`](Self::play) for cpal's format-tagged buffer.
+    pub fn play_data(&mut self, data: &mut cpal::Data, time: CallbackTime) {
+        with_samples!(data, as_slice_mut, |s| self.play(s, time));
     }
 }
 
@@ -730,35 +639,19 @@ impl BridgeHandle {
         self.shared.note_error(kind, direction);
     }
 
-    /// New wet/dry gains, ramped over 20 ms on the audio thread.
-    pub fn set_mix(&self, mix: Mix) {
-        self.shared.wet_bits.store(mix.wet.to_bits(), Relaxed);
-        self.shared.dry_bits.store(mix.dry.to_bits(), Relaxed);
-    }
-
-    /// Bypass: the dry signal only (ramped), or back to the mix.
-    pub fn set_bypass(&self, bypass: bool) {
-        self.shared.bypass.store(bypass, Relaxed);
-    }
-
-    /// Whether bypass is on.
-    pub fn bypass(&self) -> bool {
-        self.shared.bypass.load(Relaxed)
-    }
-
     /// Ends a safety mute: the engine is reset and the output fades in again.
     pub fn unmute(&self) {
         self.shared.unmute.store(true, Relaxed);
     }
 
-    /// Test hook: the next playback callback spins for `stall` before its work.
-    #[doc(hidden)]
-    pub fn stall_next_callback(&self, stall: Duration) {
+    /// Test hook (feature `test-hooks`): the next playback callback spins for `stall` before its work.
+    #[cfg(feature = "test-hooks")]
+    pub fn stall_next_callback(&self, stall: std::time::Duration) {
         self.shared.stall_ns.store(stall.as_nanos() as u64, Relaxed);
     }
 
-    /// Test hook: the engine's next output gets a NaN before the safety stage.
-    #[doc(hidden)]
+    /// Test hook (feature `test-hooks`): the engine's next output gets a NaN before the safety stage.
+    #[cfg(feature = "test-hooks")]
     pub fn inject_nonfinite_output(&self) {
         self.shared.inject_nonfinite.store(true, Relaxed);
     }

@@ -7,7 +7,7 @@ use cpal::traits::{DeviceTrait, HostTrait, StreamTrait};
 use cpal::{BufferSize, SampleFormat, StreamConfig, SupportedBufferSize, SupportedStreamConfigRange};
 use partita_core::Engine;
 
-use crate::bridge::{Bridge, BridgeHandle, BridgeOptions, CallbackTime, EngineSide, Mix};
+use crate::bridge::{Bridge, BridgeHandle, BridgeOptions, CallbackTime, EngineSide};
 use crate::channels::ChannelMap;
 use crate::convert;
 use crate::drift::DriftOptions;
@@ -488,7 +488,6 @@ impl LiveDevices {
             margin_frames: margin,
             ring_frames: (8 * (period.max(1024) + margin)).max(65_536),
             safety: options.safety,
-            mix: options.mix,
             drift: DriftOptions { enabled: options.drift.enabled && !self.is_jack(), ..options.drift },
         };
         let engine_latency_frames = engine.latency_frames();
@@ -524,7 +523,7 @@ impl LiveDevices {
                     let ts = info.timestamp();
                     let delay = ts.playback.saturating_duration_since(ts.callback).as_nanos() as u64;
                     let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock.now_ns() };
-                    playback.render_data(data, CallbackTime { now_ns, device_delay_ns: delay });
+                    playback.play_data(data, CallbackTime { now_ns, device_delay_ns: delay });
                 },
                 move |e: cpal::Error| errors.note_error(e.kind(), Direction::Output),
                 Some(BUILD_TIMEOUT),
@@ -579,8 +578,6 @@ pub struct StreamOptions {
     pub margin_frames: Option<usize>,
     /// The safety stage.
     pub safety: SafetyOptions,
-    /// Initial wet/dry mix.
-    pub mix: Mix,
     /// Drift correction.
     pub drift: DriftOptions,
 }
@@ -622,7 +619,8 @@ impl std::fmt::Debug for LiveStream {
 }
 
 impl LiveStream {
-    /// The control handle: stats, meters, mix, bypass, unmute.
+    /// The stream's handle: stats, meters, faults, unmute. The mix is the engine's: drive it through the
+    /// engine's [`Control`](partita_core::Control).
     pub fn handle(&self) -> &BridgeHandle {
         &self.handle
     }

@@ -37,7 +37,7 @@
 //! for k in 0..4u64 {
 //!     let t = CallbackTime { now_ns: k * 1_333_333, device_delay_ns: 0 };
 //!     capture.capture(&input, t);
-//!     playback.render(&mut output, t);
+//!     playback.play(&mut output, t);
 //!     heard.extend_from_slice(&output);
 //!     input[0] = 0.0;
 //! }
@@ -71,7 +71,7 @@ pub mod safety;
 mod stats;
 
 pub use bridge::{
-    Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, Mix, PlaybackSide, MAX_ENGINE_CHANNELS,
+    Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, PlaybackSide, MAX_ENGINE_CHANNELS,
 };
 pub use channels::ChannelMap;
 pub use drift::{Correction, DriftOptions, DriftTracker};

@@ -152,7 +152,7 @@ pub struct Peaks {
 
 /// Atomics shared by the callbacks, the error callbacks and the control side.
 #[derive(Debug)]
-pub(crate) struct Shared {
+pub(crate) struct BridgeCells {
     pub rate_hz: u32,
     pub engine_latency_frames: u64,
     pub host_xruns: AtomicU64,
@@ -188,16 +188,15 @@ pub(crate) struct Shared {
     pub latency_count: AtomicU64,
     pub in_peak: AtomicU32,
     pub out_peak: AtomicU32,
-    pub wet_bits: AtomicU32,
-    pub dry_bits: AtomicU32,
-    pub bypass: AtomicBool,
     pub unmute: AtomicBool,
+    #[cfg(feature = "test-hooks")]
     pub stall_ns: AtomicU64,
+    #[cfg(feature = "test-hooks")]
     pub inject_nonfinite: AtomicBool,
 }
 
-impl Shared {
-    pub fn new(rate_hz: u32, engine_latency_frames: usize, wet: f32, dry: f32) -> Self {
+impl BridgeCells {
+    pub fn new(rate_hz: u32, engine_latency_frames: usize) -> Self {
         let z = || AtomicU64::new(0);
         Self {
             rate_hz,
@@ -234,11 +233,10 @@ impl Shared {
             latency_count: z(),
             in_peak: AtomicU32::new(0),
             out_peak: AtomicU32::new(0),
-            wet_bits: AtomicU32::new(wet.to_bits()),
-            dry_bits: AtomicU32::new(dry.to_bits()),
-            bypass: AtomicBool::new(false),
             unmute: AtomicBool::new(false),
+            #[cfg(feature = "test-hooks")]
             stall_ns: z(),
+            #[cfg(feature = "test-hooks")]
             inject_nonfinite: AtomicBool::new(false),
         }
     }

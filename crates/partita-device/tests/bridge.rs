@@ -3,8 +3,8 @@
 //! without overflowing or running dry, stalls and safety mutes are counted.
 
 use partita_core::synth::{decaying_noise, Noise};
-use partita_core::{naive, Engine, ImpulseResponse, Plan, Routing};
-use partita_device::{Bridge, BridgeOptions, CallbackTime, DriftOptions, EngineSide, Mix, MuteReason, SafetyOptions};
+use partita_core::{naive, Command, Engine, EngineOptions, ImpulseResponse, Mix, Plan, Routing};
+use partita_device::{Bridge, BridgeOptions, CallbackTime, DriftOptions, EngineSide, MuteReason, SafetyOptions};
 use partita_testkit::ErrorBound;
 
 const RATE: u32 = 48_000;
@@ -49,7 +49,7 @@ fn output_is_the_convolution_through_random_callback_sizes() {
             let t = CallbackTime { now_ns: ns(at as u64), device_delay_ns: 0 };
             capture.capture(&inter, t);
             let mut out = vec![0.0f32; 2 * n];
-            playback.render(&mut out, t);
+            playback.play(&mut out, t);
             for i in 0..n {
                 y[0].push(out[2 * i]);
                 y[1].push(out[2 * i + 1]);
@@ -79,7 +79,7 @@ fn integer_formats_and_channel_maps() {
     let input: Vec<i16> = (0..256).map(|i| ((i as i16) - 128) * 100).collect();
     let mut out = vec![0i32; 3 * 256];
     capture.capture(&input, CallbackTime::default());
-    playback.render(&mut out, CallbackTime::default());
+    playback.play(&mut out, CallbackTime::default());
     for i in 32..256 {
         let x = f64::from(input[i - 32]) / 32768.0;
         let left = out[3 * i + 2] as f64 / 2147483648.0;
@@ -115,7 +115,7 @@ fn drift_between_skewed_clocks_is_corrected() {
                 capture.capture(&input, CallbackTime { now_ns: ((t_in + j) * 1e9) as u64, device_delay_ns: 0 });
                 t_in += in_period;
             } else {
-                playback.render(&mut out, CallbackTime { now_ns: ((t_out + j) * 1e9) as u64, device_delay_ns: 0 });
+                playback.play(&mut out, CallbackTime { now_ns: ((t_out + j) * 1e9) as u64, device_delay_ns: 0 });
                 t_out += out_period;
             }
         }
@@ -151,7 +151,7 @@ fn one_clock_needs_no_correction() {
             capture.capture(&input, CallbackTime { now_ns: ((t_in + j) * 1e9) as u64, device_delay_ns: 0 });
             t_in += 128.0 / f64::from(RATE);
         } else {
-            playback.render(&mut out, CallbackTime { now_ns: ((t_out + j) * 1e9) as u64, device_delay_ns: 0 });
+            playback.play(&mut out, CallbackTime { now_ns: ((t_out + j) * 1e9) as u64, device_delay_ns: 0 });
             t_out += 192.0 / f64::from(RATE);
         }
     }
@@ -168,12 +168,12 @@ fn a_stalled_callback_is_an_overrun() {
     let mut out = vec![0.0f32; 64];
     for k in 0..10u64 {
         capture.capture(&input, CallbackTime { now_ns: ns(64 * k), device_delay_ns: 0 });
-        playback.render(&mut out, CallbackTime { now_ns: ns(64 * k), device_delay_ns: 0 });
+        playback.play(&mut out, CallbackTime { now_ns: ns(64 * k), device_delay_ns: 0 });
     }
     let before = handle.stats().late_callbacks;
     handle.stall_next_callback(std::time::Duration::from_nanos(3 * ns(64)));
     capture.capture(&input, CallbackTime { now_ns: ns(640), device_delay_ns: 0 });
-    playback.render(&mut out, CallbackTime { now_ns: ns(640), device_delay_ns: 0 });
+    playback.play(&mut out, CallbackTime { now_ns: ns(640), device_delay_ns: 0 });
     let s = handle.stats();
     assert!(s.late_callbacks > before, "{s:?}");
     assert_eq!(s.overruns(), s.late_callbacks);
@@ -196,7 +196,7 @@ fn safety_stage_mutes_on_nan_and_on_feedback() {
             t += x.len() as u64;
             capture.capture(x, time);
             let mut out = vec![0.0f32; x.len()];
-            playback.render(&mut out, time);
+            playback.play(&mut out, time);
             out
         };
         let quiet = vec![0.1f32; 256];
@@ -234,31 +234,50 @@ fn safety_stage_mutes_on_nan_and_on_feedback() {
     }
 }
 
-/// Wet and dry: the dry path is aligned with the engine's latency, bypass plays the dry signal only.
+/// Wet, dry and bypass sent through the engine's `Control` (the bridge has no mixer of its own): the dry
+/// path is aligned with the engine's latency, bypass plays the dry signal only, as the engine's own mix
+/// tests say (crates/partita-core/tests/control.rs).
 #[test]
 fn wet_dry_and_bypass() {
-    let e = engine(&[vec![0.0, 0.0, 0.5]], Routing::Mono, 16);
-    let mut opts = options(EngineSide::Capture, 1, 1);
-    opts.mix = Mix { wet: 1.0, dry: 1.0 };
-    let Bridge { mut capture, mut playback, handle } = Bridge::new(e, &opts).unwrap();
+    let ir = ImpulseResponse::new(vec![vec![0.0, 0.0, 0.5]], RATE).unwrap();
+    let plan = Plan::uniform(16, ir.frames()).unwrap();
+    let start = Mix { wet: 1.0, dry: 1.0, ..Mix::default() };
+    let mut e =
+        Engine::with_options(&plan, &ir, Routing::Mono, EngineOptions { mix: start, ..EngineOptions::new(1024) })
+            .unwrap();
+    let mut control = e.control().unwrap();
+    let opts = options(EngineSide::Capture, 1, 1);
+    let Bridge { mut capture, mut playback, handle: _handle } = Bridge::new(e, &opts).unwrap();
     let mut x = vec![0.0f32; 2048];
     x[1000] = 0.5;
     let mut y = vec![0.0f32; 2048];
     for (k, (xc, yc)) in x.chunks(64).zip(y.chunks_mut(64)).enumerate() {
         let t = CallbackTime { now_ns: ns(64 * k as u64), device_delay_ns: 0 };
         capture.capture(xc, t);
-        playback.render(yc, t);
+        playback.play(yc, t);
     }
     // Dry at 1000 + 16 (latency), wet 2 frames later at half gain.
     assert!((y[1016] - 0.5).abs() < 1e-6 && (y[1018] - 0.25).abs() < 1e-6, "{:?}", &y[1014..1020]);
-    handle.set_bypass(true);
+    control.send(Command::Bypass(true)).unwrap();
     let mut x2 = vec![0.0f32; 4096];
     x2[3000] = 0.5;
     let mut y2 = vec![0.0f32; 4096];
     for (k, (xc, yc)) in x2.chunks(64).zip(y2.chunks_mut(64)).enumerate() {
         let t = CallbackTime { now_ns: ns(2048 + 64 * k as u64), device_delay_ns: 0 };
         capture.capture(xc, t);
-        playback.render(yc, t);
+        playback.play(yc, t);
     }
     assert!((y2[3016] - 0.5).abs() < 1e-6 && y2[3018].abs() < 1e-6, "{:?}", &y2[3014..3020]);
+    // Out of bypass, wet 0.5 and dry 0.25 through Control: both ramp over 10 ms (480 frames), long done
+    // by the impulse at 3000.
+    for command in [Command::Bypass(false), Command::WetGain(0.5), Command::DryGain(0.25)] {
+        control.send(command).unwrap();
+    }
+    let mut y3 = vec![0.0f32; 4096];
+    for (k, (xc, yc)) in x2.chunks(64).zip(y3.chunks_mut(64)).enumerate() {
+        let t = CallbackTime { now_ns: ns(6144 + 64 * k as u64), device_delay_ns: 0 };
+        capture.capture(xc, t);
+        playback.play(yc, t);
+    }
+    assert!((y3[3016] - 0.125).abs() < 1e-6 && (y3[3018] - 0.125).abs() < 1e-6, "{:?}", &y3[3014..3020]);
 }

@@ -1,34 +1,36 @@
 //! Real-time safety of the callback bodies: capture and render (format conversion, channel mapping,
-//! ring push/pop, priming, drift correction, the engine in chunks, mix, safety stage, meters, timing)
-//! run under the allocation-trapping global allocator, on both engine sides, in several formats, with
-//! period changes, corrections, mutes, unmute and bypass along the way.
+//! ring push/pop, priming, drift correction, the engine in chunks with its mix, safety stage, meters,
+//! timing) run under the allocation-trapping global allocator, on both engine sides, in several formats,
+//! with period changes, corrections, mutes, unmute and bypass (through the engine's `Control`) along the
+//! way.
 
 use partita_core::synth::{decaying_noise, Noise};
-use partita_core::{Engine, ImpulseResponse, Routing};
+use partita_core::{Command, Control, Engine, ImpulseResponse, Routing};
 use partita_device::{Bridge, BridgeOptions, CallbackTime, EngineSide, SafetyOptions};
 use partita_testkit::{armed, TrapAllocator};
 
 #[global_allocator]
 static ALLOC: TrapAllocator = TrapAllocator;
 
-fn bridge(side: EngineSide) -> Bridge {
+fn bridge(side: EngineSide) -> (Bridge, Control) {
     let taps: Vec<Vec<f32>> = (0..2).map(|c| decaying_noise(2000, 800.0, c)).collect();
     let ir = ImpulseResponse::new(taps, 48_000).unwrap();
     let plan = partita_core::Planner::new().block_frames(32).plan(ir.frames()).unwrap();
-    let engine = Engine::new(&plan, &ir, Routing::Stereo, 512).unwrap();
+    let mut engine = Engine::new(&plan, &ir, Routing::Stereo, 512).unwrap();
+    let control = engine.control().unwrap();
     let options = BridgeOptions {
         side,
         margin_frames: 40,
         safety: SafetyOptions { fade_in_ms: 5.0, runaway_ms: 20.0, ..SafetyOptions::default() },
         ..BridgeOptions::new(48_000, 2, 2)
     };
-    Bridge::new(engine, &options).unwrap()
+    (Bridge::new(engine, &options).unwrap(), control)
 }
 
 #[test]
 fn callbacks_never_touch_the_heap() {
     for side in [EngineSide::Capture, EngineSide::Playback] {
-        let Bridge { mut capture, mut playback, handle } = bridge(side);
+        let (Bridge { mut capture, mut playback, handle }, mut control) = bridge(side);
         let mut noise = Noise::new(1);
         // Everything the calls use is allocated up front.
         let max = 1500;
@@ -45,7 +47,7 @@ fn callbacks_never_touch_the_heap() {
         // Warm-up outside the trap: first-use paths (thread-locals of the CPU clock, lazily
         // initialised statics) are not the steady state.
         capture.capture(&in_f32[..128], CallbackTime::default());
-        playback.render(&mut out_f32[..128], CallbackTime::default());
+        playback.play(&mut out_f32[..128], CallbackTime::default());
         let ((), heap_ops) = armed(|| {
             let mut now = 0u64;
             for (k, &(n, kind, r)) in plan.iter().enumerate() {
@@ -60,14 +62,14 @@ fn callbacks_never_touch_the_heap() {
                 // Render sizes differ from capture sizes now and then: priming, underruns, drift.
                 let m = if r % 7 == 0 { (n / 2).max(1) } else { n };
                 if kind == 3 {
-                    playback.render(&mut out_i24[..2 * m], t);
+                    playback.play(&mut out_i24[..2 * m], t);
                 } else {
-                    playback.render(&mut out_f32[..2 * m], t);
+                    playback.play(&mut out_f32[..2 * m], t);
                 }
                 match k % 97 {
                     10 => handle.unmute(),
-                    20 => handle.set_bypass(true),
-                    30 => handle.set_bypass(false),
+                    20 => control.send(Command::Bypass(true)).unwrap(),
+                    30 => control.send(Command::Bypass(false)).unwrap(),
                     40 => handle.inject_nonfinite_output(),
                     _ => {}
                 }
@@ -82,7 +84,7 @@ fn callbacks_never_touch_the_heap() {
 /// The entry points the cpal callbacks call, with cpal's format-tagged buffers (the format dispatch).
 #[test]
 fn format_dispatch_never_touches_the_heap() {
-    let Bridge { mut capture, mut playback, handle } = bridge(EngineSide::Capture);
+    let (Bridge { mut capture, mut playback, handle }, _control) = bridge(EngineSide::Capture);
     let mut input: Vec<i16> = (0..512).map(|i| (i * 37 % 2000) as i16).collect();
     let mut output = vec![0u16; 512];
     // SAFETY: both pointers come from live Vecs of the stated element type and length, which outlive
@@ -92,12 +94,12 @@ fn format_dispatch_never_touches_the_heap() {
     let mut out_data =
         unsafe { cpal::Data::from_parts(output.as_mut_ptr().cast(), output.len(), cpal::SampleFormat::U16) };
     capture.capture_data(&in_data, CallbackTime::default());
-    playback.render_data(&mut out_data, CallbackTime::default());
+    playback.play_data(&mut out_data, CallbackTime::default());
     let ((), heap_ops) = armed(|| {
         for k in 0..200u64 {
             let t = CallbackTime { now_ns: k * 5_333_333, device_delay_ns: 0 };
             capture.capture_data(&in_data, t);
-            playback.render_data(&mut out_data, t);
+            playback.play_data(&mut out_data, t);
         }
     });
     assert_eq!(heap_ops, 0, "the format dispatch allocated or freed {heap_ops} times");
