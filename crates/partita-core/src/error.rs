@@ -4,6 +4,7 @@ use std::fmt;
 
 /// Why an [`ImpulseResponse`](crate::ImpulseResponse) was refused.
 #[derive(Debug, Clone, PartialEq)]
+#[non_exhaustive]
 pub enum IrError {
     /// The channel list was empty.
     NoChannels,
@@ -51,6 +52,7 @@ impl std::error::Error for IrError {}
 
 /// Why a [`Plan`](crate::Plan) cannot be built or run.
 #[derive(Debug, Clone, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum PlanError {
     /// The engine block size was zero.
     BlockFramesZero,
@@ -166,6 +168,7 @@ impl std::error::Error for RoutingError {}
 
 /// Why an [`Engine`](crate::Engine) could not be built.
 #[derive(Debug, Clone, PartialEq)]
+#[non_exhaustive]
 pub enum EngineError {
     /// The plan is invalid.
     Plan(PlanError),
@@ -238,6 +241,7 @@ impl From<RoutingError> for EngineError {
 
 /// A `process()` call the engine could not honour. `Copy`, no heap: safe to return on the audio thread.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum ProcessError {
     /// The number of input or output buffers differs from the routing.
     ChannelMismatch {
@@ -281,6 +285,7 @@ impl std::error::Error for ProcessError {}
 
 /// Why the control side refused an IR or a parameter.
 #[derive(Debug, Clone, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum ControlError {
     /// The IR has another channel count than the engine's, so its routing would differ.
     RoutingMismatch {
@@ -329,6 +334,7 @@ impl std::error::Error for ControlError {}
 
 /// Why a [`Mix`](crate::Mix) does not fit an engine.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum MixError {
     /// A gain is NaN or infinite (or the output gain in dB overflows).
     NotFinite {

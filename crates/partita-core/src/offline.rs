@@ -51,6 +51,7 @@ pub const MIN_SEGMENT_FRAMES: usize = 1 << 14;
 
 /// Why [`render`] could not run.
 #[derive(Debug, Clone, PartialEq)]
+#[non_exhaustive]
 pub enum RenderError {
     /// The plan, IR or routing cannot make an engine.
     Engine(EngineError),

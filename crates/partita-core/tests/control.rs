@@ -112,7 +112,7 @@ fn swap_output_is_the_crossfade_of_two_oracle_runs() {
                             assert_eq!(ir.id(), 0, "the IR the engine was built with comes back");
                             Some(*report)
                         }
-                        Event::Applied { .. } => None,
+                        _ => None,
                     })
                     .collect();
                 let ctx = format!("plan {pi} {:?} {routing:?} fade {fade}", plan.levels);
@@ -176,7 +176,7 @@ fn swaps_back_and_forth_reuse_the_retired_ir_and_a_shorter_ir_fits() {
     });
     reports.extend(control.poll().into_iter().filter_map(|ev| match ev {
         Event::Retired { report, .. } => Some(report),
-        Event::Applied { .. } => None,
+        _ => None,
     }));
     assert!(reports.len() >= 20, "only {} swaps", reports.len());
     let ya = oracle(&input, &a, Routing::Stereo, e.latency_frames(), total);
@@ -202,7 +202,7 @@ fn applied_frames(events: Vec<Event>) -> Vec<(Command, u64)> {
         .into_iter()
         .filter_map(|ev| match ev {
             Event::Applied { command, frame } => Some((command, frame)),
-            Event::Retired { .. } => None,
+            _ => None,
         })
         .collect()
 }

@@ -80,6 +80,7 @@ fn stress(schedule: Schedule, zero: bool) {
                     }
                     Event::Applied { command: Command::WetGain(g), frame } => gains.push((frame, f64::from(g))),
                     Event::Applied { command, .. } => panic!("unexpected {command:?}"),
+                    other => panic!("unexpected event {other:?}"),
                 }
             }
             if let Some(ir) = spare.take() {
@@ -100,6 +101,7 @@ fn stress(schedule: Schedule, zero: bool) {
                 Event::Retired { report, .. } => reports.push(report),
                 Event::Applied { command: Command::WetGain(g), frame } => gains.push((frame, f64::from(g))),
                 Event::Applied { .. } => {}
+                other => panic!("unexpected event {other:?}"),
             }
         }
         let status = control.status();

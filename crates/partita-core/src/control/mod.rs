@@ -83,6 +83,7 @@ use wire::{ControlEnds, StatusCells, SwapRequest};
 /// assert_eq!(control.status().swaps_completed, 1);
 /// # Ok::<(), Box<dyn std::error::Error>>(())
 /// ```
+#[must_use = "dropping the control handle frees the IRs the engine hands back; keep it while the engine runs"]
 pub struct Control {
     ends: ControlEnds,
     recipe: Arc<SpectraRecipe>,

@@ -24,6 +24,7 @@ const EVENT_QUEUE: usize = 256;
 /// A parameter change or action for the audio thread. Applied at the next engine block boundary;
 /// gains, bypass and pre-delay then ramp over [`PARAM_RAMP_SECONDS`].
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
 pub enum Command {
     /// Linear gain of the convolved (wet) signal; 1 by default.
     WetGain(f32),
@@ -91,6 +92,7 @@ pub struct SwapReport {
 
 /// A message from the engine to the control side.
 #[derive(Debug)]
+#[non_exhaustive]
 pub enum Event {
     /// An IR the engine no longer uses, handed back to be dropped (or swapped in again) off the audio
     /// thread, with the report of the swap that replaced it.
@@ -230,6 +232,7 @@ pub(crate) struct Counters {
 /// A read-only view of an engine's run-time counters, for the control side. Cheap to clone, `Send` and
 /// `Sync`; reading never blocks the audio thread.
 #[derive(Debug, Clone)]
+#[must_use]
 pub struct Monitor {
     pub(crate) counters: Arc<Counters>,
 }

@@ -92,6 +92,7 @@ impl EngineOptions {
 /// assert!((output[4] - 1.0).abs() < 1e-6 && (output[5] - 0.5).abs() < 1e-6);
 /// ```
 #[derive(Debug)]
+#[must_use = "an engine does nothing until `process` is called"]
 pub struct Engine {
     plan: Plan,
     routes: RouteMap,
@@ -584,6 +585,16 @@ impl Engine {
         }
     }
 }
+
+// The handles move to the threads that use them: the engine to the audio thread, the control handle to a
+// control thread, monitors anywhere. Checked at compile time so a change that breaks it cannot land.
+const _: () = {
+    const fn assert_send<T: Send>() {}
+    const fn assert_send_sync<T: Send + Sync>() {}
+    assert_send::<Engine>();
+    assert_send::<Control>();
+    assert_send_sync::<Monitor>();
+};
 
 /// Output frame number (since the engine was built) of engine frame `emit`.
 fn out_frame(latency: usize, frame_base: u64, emit: i64) -> u64 {

@@ -25,6 +25,7 @@ pub enum PlanMode {
 /// assert!(plan.flops_per_sample() < uniform.flops_per_sample() / 20.0);
 /// ```
 #[derive(Debug, Clone, PartialEq)]
+#[must_use = "a planner does nothing until `plan` is called"]
 pub struct Planner {
     block_frames: usize,
     zero_latency: bool,
@@ -61,12 +62,14 @@ impl Planner {
     }
 
     /// Engine block size B.
+    #[must_use = "a builder method returns the changed planner"]
     pub fn block_frames(mut self, block_frames: usize) -> Self {
         self.block_frames = block_frames;
         self
     }
 
     /// Zero latency (a direct-form head) or block latency.
+    #[must_use = "a builder method returns the changed planner"]
     pub fn zero_latency(mut self, zero_latency: bool) -> Self {
         self.zero_latency = zero_latency;
         self
@@ -75,30 +78,35 @@ impl Planner {
     /// The schedule of every level larger than the engine block (level-0 blocks are always `sync`; with
     /// `sliced`, so are levels below [`min_sliced_frames`](Self::min_sliced_frames), and with `workers`,
     /// levels below [`min_worker_frames`](Self::min_worker_frames)).
+    #[must_use = "a builder method returns the changed planner"]
     pub fn schedule(mut self, schedule: Schedule) -> Self {
         self.schedule = schedule;
         self
     }
 
     /// Uniform or optimal.
+    #[must_use = "a builder method returns the changed planner"]
     pub fn mode(mut self, mode: PlanMode) -> Self {
         self.mode = mode;
         self
     }
 
     /// The cost model the optimal mode minimises.
+    #[must_use = "a builder method returns the changed planner"]
     pub fn cost_model(mut self, model: CostModel) -> Self {
         self.model = model;
         self
     }
 
     /// The engine shape costs are counted for (default mono).
+    #[must_use = "a builder method returns the changed planner"]
     pub fn shape(mut self, shape: Shape) -> Self {
         self.shape = shape;
         self
     }
 
     /// Largest level block the optimal mode may use.
+    #[must_use = "a builder method returns the changed planner"]
     pub fn max_level_frames(mut self, frames: usize) -> Self {
         self.max_level_frames = frames;
         self
@@ -106,6 +114,7 @@ impl Planner {
 
     /// With the `sliced` schedule, levels smaller than this stay `sync`: their whole job is cheaper
     /// than the slicing overhead and well inside one callback (default 2,048 frames).
+    #[must_use = "a builder method returns the changed planner"]
     pub fn min_sliced_frames(mut self, frames: usize) -> Self {
         self.min_sliced_frames = frames;
         self
@@ -117,6 +126,7 @@ impl Planner {
     /// extra partitions below it, so the mean load drops; but every callback that completes such a level
     /// carries its whole job, so the callback-time tail grows. The measured trade-off (S1, paced, `partita
     /// plan --min-worker-frames`) is in docs/benchmarks/log.md.
+    #[must_use = "a builder method returns the changed planner"]
     pub fn min_worker_frames(mut self, frames: usize) -> Self {
         self.min_worker_frames = frames;
         self
