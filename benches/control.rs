@@ -6,10 +6,10 @@
 //! latency bench makes (the optimal planner with this machine's calibrated cost model, stereo shape).
 //!
 //! 1. **T7 prepare**: wall-clock (and thread-CPU) time of `Control::prepare` for a second S1 IR, median
-//!    and max over repeated runs (the first run, on fresh memory, is kept). Beside it, a replica of the
-//!    preparation built from the same realfft calls (`LevelIr::new` is crate-private) splits the time
-//!    per level into FFT planning (twiddles), allocation with prefault, and the partition FFTs, so a miss
-//!    can be attributed.
+//!    and max over repeated runs (the first run, on fresh memory, is kept). Beside it, the same
+//!    preparation timed from inside (`Control::prepare_timed`, core's `test-hooks` feature) splits the
+//!    time per level slot into FFT planning (twiddles), allocation with prefault, and the partition FFTs,
+//!    so a miss can be attributed.
 //! 2. **Crossfade**: a paced run (one host call of one block per deadline on the real grid, sleeping in
 //!    between, through `partita::measure::drive`) of a few seconds steady, then a swap with a 1 s fade,
 //!    repeated (A -> B -> A ...: the retired IR is swapped in again, so nothing is freed or prepared during
@@ -45,7 +45,6 @@ use partita_core::{
     thread_cpu_seconds, CostModel, Engine, EngineOptions, Event, FadeState, ImpulseResponse, Kernel, Lateness, Plan,
     PlanMode, Planner, PreparedIr, Routing, Schedule, Shape, SwapReport,
 };
-use realfft::RealFftPlanner;
 
 const SCHEDULES: [Schedule; 3] = [Schedule::Sync, Schedule::Workers, Schedule::Sliced];
 const BLOCK_FRAMES: usize = 64;
@@ -211,9 +210,9 @@ struct PrepareResult {
     wall_s: Vec<f64>,
     cpu_s: Vec<f64>,
     prepared_bytes: usize,
-    /// Replica split, from the median run of the replica.
+    /// Split per level slot, from the median run of the timed preparation.
     levels: Vec<LevelSplit>,
-    replica_total_s: Vec<f64>,
+    timed_total_s: Vec<f64>,
 }
 
 fn bench_prepare(
@@ -225,11 +224,10 @@ fn bench_prepare(
 ) -> PrepareResult {
     let mut engine = Engine::new(plan, ir_a, Routing::Stereo, BLOCK_FRAMES).expect("engine for a valid plan");
     let control = engine.control().expect("first call");
-    let channels: Vec<&[f32]> = (0..ir_b.channels()).map(|c| ir_b.channel(c)).collect();
     let (mut wall_s, mut cpu_s) = (Vec::new(), Vec::new());
-    let mut replicas: Vec<(f64, Vec<LevelSplit>)> = Vec::new();
+    let mut timed: Vec<(f64, Vec<LevelSplit>)> = Vec::new();
     let mut prepared_bytes = 0;
-    // The engine's prepare and the replica alternate, so both see the same machine.
+    // The plain prepare and the timed one alternate, so both see the same machine.
     for _ in 0..setup.prepare_runs {
         let c0 = thread_cpu_seconds();
         let t0 = Instant::now();
@@ -240,81 +238,37 @@ fn bench_prepare(
         drop(black_box(prepared)); // freed outside the timed region
         wall_s.push(wall);
         cpu_s.push(cpu);
-        replicas.push(replica_prepare(plan, &channels));
+        timed.push(timed_prepare(&control, ir_b));
     }
-    let replica_total_s: Vec<f64> = replicas.iter().map(|r| r.0).collect();
-    replicas.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let levels = replicas.swap_remove(replicas.len() / 2).1;
+    let timed_total_s: Vec<f64> = timed.iter().map(|r| r.0).collect();
+    timed.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let levels = timed.swap_remove(timed.len() / 2).1;
     eprintln!(
         "  {schedule:<8} prepare median {:.2} ms, max {:.2} ms",
         ms(median(&wall_s)),
         ms(wall_s.iter().copied().fold(0.0, f64::max))
     );
-    PrepareResult { schedule, wall_s, cpu_s, prepared_bytes, levels, replica_total_s }
+    PrepareResult { schedule, wall_s, cpu_s, prepared_bytes, levels, timed_total_s }
 }
 
-/// The work of `Control::prepare` for a stereo (two one-channel groups) plan, rebuilt from the same
-/// realfft calls as `LevelIr::new`, timed per part: FFT planning (one planner per prepare, as the engine
-/// does), the spectra allocation with one write per page (`ring::prefaulted`), and per partition the
-/// scaled copy, forward FFT and split store. Returns the total and the per-level split.
-fn replica_prepare(plan: &Plan, channels: &[&[f32]]) -> (f64, Vec<LevelSplit>) {
-    let t_all = Instant::now();
-    let mut planner = RealFftPlanner::<f32>::new();
-    let mut out = Vec::new();
-    // Every level's spectra stay alive until the end, as in a `PreparedIr` (no page reuse between levels).
-    let mut kept = Vec::new();
-    for level in &plan.levels {
-        let (n, partitions, offset) = (level.block_frames, level.partitions, level.offset_frames);
-        let mut split = LevelSplit { n, partitions, channels: channels.len(), plan_s: 0.0, alloc_s: 0.0, fft_s: 0.0 };
-        for taps in channels {
-            let t0 = Instant::now();
-            let fwd = planner.plan_fft_forward(2 * n);
-            let mut time = fwd.make_input_vec();
-            let mut spec = fwd.make_output_vec();
-            let mut scratch = fwd.make_scratch_vec();
-            let t1 = Instant::now();
-            let bins = n + 1;
-            let mut re = prefaulted(partitions * bins);
-            let mut im = prefaulted(partitions * bins);
-            let t2 = Instant::now();
-            let scale = 1.0 / (2 * n) as f32;
-            for p in 0..partitions {
-                time.fill(0.0);
-                let start = (offset + p * n).min(taps.len());
-                let end = (offset + (p + 1) * n).min(taps.len());
-                for (t, &h) in time.iter_mut().zip(&taps[start..end]) {
-                    *t = h * scale;
-                }
-                fwd.process_with_scratch(&mut time, &mut spec, &mut scratch).expect("sizes from the same plan");
-                let r = p * bins..(p + 1) * bins;
-                for ((a, b), c) in re[r.clone()].iter_mut().zip(&mut im[r]).zip(&spec) {
-                    *a = c.re;
-                    *b = c.im;
-                }
-            }
-            let t3 = Instant::now();
-            black_box((&re, &im));
-            split.plan_s += (t1 - t0).as_secs_f64();
-            split.alloc_s += (t2 - t1).as_secs_f64();
-            split.fft_s += (t3 - t2).as_secs_f64();
-            kept.push((re, im));
-        }
-        out.push(split);
-    }
-    let total_s = t_all.elapsed().as_secs_f64();
-    drop(black_box(kept)); // freed outside the timed region, as the bench drops each `PreparedIr`
-    (total_s, out)
-}
-
-/// `vec![0.0; len]` with one write per page, as the engine's `ring::prefaulted` (crate-private).
-fn prefaulted(len: usize) -> Vec<f32> {
-    let mut v = vec![0.0f32; len];
-    for i in (0..len).step_by(1024) {
-        // A volatile write so the page is touched even though the value is unchanged.
-        // SAFETY: `i < len`, so the pointer is in bounds and aligned.
-        unsafe { std::ptr::write_volatile(v.as_mut_ptr().add(i), 0.0) };
-    }
-    v
+/// One timed preparation of `ir` by the engine's own code: the total and the per-slot split.
+fn timed_prepare(control: &partita_core::Control, ir: &ImpulseResponse) -> (f64, Vec<LevelSplit>) {
+    let t0 = Instant::now();
+    let (prepared, splits) = control.prepare_timed(ir).expect("an IR of the engine's shape");
+    let total_s = t0.elapsed().as_secs_f64();
+    drop(black_box(prepared)); // freed outside the timed region
+    let levels = splits
+        .iter()
+        .map(|p| LevelSplit {
+            n: p.block_frames,
+            partitions: p.partitions,
+            channels: p.ir_channels,
+            plan_s: p.plan_s,
+            alloc_s: p.alloc_s,
+            fft_s: p.fft_s,
+        })
+        .collect();
+    (total_s, levels)
 }
 
 fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &mut Csv) {
@@ -326,7 +280,7 @@ fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &m
         "wall max ms",
         "first run ms",
         "thread-CPU median ms",
-        "replica median ms",
+        "timed median ms",
         "T7 <= 20 ms (median / max)",
     ]);
     for r in results {
@@ -341,7 +295,7 @@ fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &m
             format!("{:.2}", ms(max)),
             format!("{:.2}", ms(r.wall_s[0])),
             format!("{:.2}", ms(median(&r.cpu_s))),
-            format!("{:.2}", ms(median(&r.replica_total_s))),
+            format!("{:.2}", ms(median(&r.timed_total_s))),
             format!(
                 "{} / {}{}",
                 verdict(ms(med) <= T7_TARGET_MS),
@@ -361,7 +315,7 @@ fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &m
             ("prepare_wall_median_ms", ms(med)),
             ("prepare_wall_max_ms", ms(max)),
             ("prepare_cpu_median_ms", ms(median(&r.cpu_s))),
-            ("replica_median_ms", ms(median(&r.replica_total_s))),
+            ("timed_median_ms", ms(median(&r.timed_total_s))),
             ("spectra_mb", r.prepared_bytes as f64 / 1e6),
         ] {
             csv.row(&["t7".into(), name.into(), "all".into(), metric.into(), format!("{v:.4}")]);
@@ -370,7 +324,7 @@ fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &m
     println!("## T7: `Control::prepare` for the IR above (target <= {T7_TARGET_MS} ms for S1, off the audio thread)\n");
     println!(
         "Wall-clock time of one call on an idle engine, all runs of one engine (the first on fresh memory; later \
-         runs may reuse pages the allocator kept). \"replica\" rebuilds the same work from realfft calls to split it.\n"
+         runs may reuse pages the allocator kept). \"timed\" is the same preparation timed from inside, per slot.\n"
     );
     println!("{}", t.render());
 
@@ -383,7 +337,7 @@ fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &m
         "alloc + prefault ms",
         "FFTs + store ms",
         "us per FFT",
-        "share of replica %",
+        "share of timed %",
     ]);
     for (r, (_, plan)) in results.iter().zip(plans) {
         let name = r.schedule.as_str();
@@ -420,7 +374,7 @@ fn report_prepare(results: &[PrepareResult], plans: &[(Schedule, Plan)], csv: &m
             "100".into(),
         ]);
     }
-    println!("Where the time goes (replica of `LevelIr::new`, median run; both channels of each level):\n");
+    println!("Where the time goes (`Control::prepare_timed`, median run; one row per level slot):\n");
     println!("{}", t.render());
 }
 

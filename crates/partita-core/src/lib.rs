@@ -53,6 +53,8 @@ pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};
 pub use plan::cost::{CostModel, MachineCosts, Shape};
 pub use plan::planner::{PlanMode, Planner};
 pub use plan::{Level, Plan, Schedule};
+#[cfg(feature = "test-hooks")]
+pub use prepared::PrepareSplit;
 pub use prepared::PreparedIr;
 pub use routing::{Path, RouteMap, Routing};
 pub use threads::thread_cpu_seconds;

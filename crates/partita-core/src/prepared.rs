@@ -9,7 +9,7 @@ use realfft::RealFftPlanner;
 use crate::error::ControlError;
 use crate::head::head_taps;
 use crate::ir::ImpulseResponse;
-use crate::level::fdl::LevelIr;
+use crate::level::fdl::{LevelIr, PrepareTimes};
 
 /// One IR level's spectra recipe: which level, and which IR channels of its routing group.
 #[derive(Debug, Clone)]
@@ -67,6 +67,17 @@ impl SpectraRecipe {
         ir: &ImpulseResponse,
         planner: &mut RealFftPlanner<f32>,
     ) -> Result<IrSet, ControlError> {
+        self.prepare_timed(ir, planner, None)
+    }
+
+    /// [`prepare_with`](Self::prepare_with), recording per level slot where the time went when `times`
+    /// is given (one entry per slot, in slot order).
+    pub(crate) fn prepare_timed(
+        &self,
+        ir: &ImpulseResponse,
+        planner: &mut RealFftPlanner<f32>,
+        mut times: Option<&mut Vec<PrepareSplit>>,
+    ) -> Result<IrSet, ControlError> {
         if ir.channels() != self.ir_channels {
             return Err(ControlError::RoutingMismatch { expected: self.ir_channels, got: ir.channels() });
         }
@@ -81,7 +92,24 @@ impl SpectraRecipe {
             .iter()
             .map(|spec| {
                 let taps: Vec<&[f32]> = spec.channels.iter().map(|&c| ir.channel(c)).collect();
-                LevelIr::new(&taps, spec.n, spec.partitions, spec.offset, planner)
+                let mut t = PrepareTimes::default();
+                let level = LevelIr::new(
+                    &taps,
+                    (spec.n, spec.partitions, spec.offset),
+                    planner,
+                    times.is_some().then_some(&mut t),
+                );
+                if let Some(times) = times.as_deref_mut() {
+                    times.push(PrepareSplit {
+                        block_frames: spec.n,
+                        partitions: spec.partitions,
+                        ir_channels: spec.channels.len(),
+                        plan_s: t.plan_s,
+                        alloc_s: t.alloc_s,
+                        fft_s: t.fft_s,
+                    });
+                }
+                level
             })
             .collect();
         let head = head_taps(
@@ -148,4 +176,22 @@ impl PreparedIr {
     pub fn memory_bytes(&self) -> usize {
         self.set.memory_bytes()
     }
+}
+
+/// Where the time of preparing one level slot went ([`Control::prepare_timed`](crate::Control), feature
+/// `test-hooks`): what the control bench reports to attribute a slow preparation.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PrepareSplit {
+    /// The slot's level block N.
+    pub block_frames: usize,
+    /// Its partitions P.
+    pub partitions: usize,
+    /// IR channels it transforms.
+    pub ir_channels: usize,
+    /// Seconds of FFT planning and transform buffers.
+    pub plan_s: f64,
+    /// Seconds of spectra allocation (with one write per page).
+    pub alloc_s: f64,
+    /// Seconds of partition copies, forward FFTs and stores.
+    pub fft_s: f64,
 }

@@ -121,6 +121,21 @@ impl Control {
         Ok(PreparedIr { set: Box::new(self.recipe.prepare(ir)?) })
     }
 
+    /// Test hook (feature `test-hooks`): [`prepare`](Self::prepare), also returning where the time went
+    /// per level slot, measured inside the engine's own preparation.
+    ///
+    /// # Errors
+    /// As [`prepare`](Self::prepare).
+    #[cfg(feature = "test-hooks")]
+    pub fn prepare_timed(
+        &self,
+        ir: &ImpulseResponse,
+    ) -> Result<(PreparedIr, Vec<crate::prepared::PrepareSplit>), ControlError> {
+        let mut times = Vec::new();
+        let set = self.recipe.prepare_timed(ir, &mut realfft::RealFftPlanner::<f32>::new(), Some(&mut times))?;
+        Ok((PreparedIr { set: Box::new(set) }, times))
+    }
+
     /// Queues a swap to `ir` with a crossfade of `fade_frames` output frames (0 switches at once, at a
     /// block boundary). The whole routing matrix changes together.
     ///

@@ -81,23 +81,31 @@ pub(crate) struct LevelIr {
 }
 
 impl LevelIr {
-    /// Transforms `[offset, offset + P N)` of each channel (zero-padded past its end). Allocates.
+    /// Transforms `[offset, offset + P N)` of each channel (zero-padded past its end). Allocates. Adds the
+    /// seconds spent in FFT planning, allocation and the partition FFTs to `times` when given (the
+    /// `test-hooks` timing of `Control::prepare`; the clock is not read otherwise).
     pub(crate) fn new(
         channels: &[&[f32]],
-        n: usize,
-        partitions: usize,
-        offset: usize,
+        (n, partitions, offset): (usize, usize, usize),
         planner: &mut RealFftPlanner<f32>,
+        mut times: Option<&mut PrepareTimes>,
     ) -> Self {
+        let mut lap = Lap::start(times.is_some());
         let fwd = planner.plan_fft_forward(2 * n);
         let mut time = fwd.make_input_vec();
         let mut spec = fwd.make_output_vec();
         let mut scratch = fwd.make_scratch_vec();
         let scale = 1.0 / (2 * n) as f32;
+        if let Some(t) = times.as_deref_mut() {
+            t.plan_s += lap.next();
+        }
         let spectra = channels
             .iter()
             .map(|taps| {
                 let mut s = Spectra::new(partitions, n + 1);
+                if let Some(t) = times.as_deref_mut() {
+                    t.alloc_s += lap.next();
+                }
                 for p in 0..partitions {
                     time.fill(0.0);
                     let start = (offset + p * n).min(taps.len());
@@ -109,6 +117,9 @@ impl LevelIr {
                         .expect("buffer sizes come from the same FFT plan");
                     s.store(p, &spec);
                 }
+                if let Some(t) = times.as_deref_mut() {
+                    t.fft_s += lap.next();
+                }
                 s
             })
             .collect();
@@ -118,6 +129,39 @@ impl LevelIr {
     /// Bytes held by the spectra.
     pub(crate) fn memory_bytes(&self) -> usize {
         self.spectra.iter().map(Spectra::bytes).sum()
+    }
+}
+
+/// Where the time of preparing one level slot's spectra went, in seconds.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub(crate) struct PrepareTimes {
+    /// FFT planning (twiddles, on the first use of a size) and the transform buffers.
+    pub(crate) plan_s: f64,
+    /// The spectra allocation, with one write per page.
+    pub(crate) alloc_s: f64,
+    /// Per partition: the scaled copy, the forward FFT and the split store.
+    pub(crate) fft_s: f64,
+}
+
+/// Laps of a clock that is read only when timing is on.
+struct Lap(Option<std::time::Instant>);
+
+impl Lap {
+    fn start(on: bool) -> Self {
+        Self(on.then(std::time::Instant::now))
+    }
+
+    /// Seconds since the last lap (0 when off).
+    fn next(&mut self) -> f64 {
+        match &mut self.0 {
+            Some(t) => {
+                let now = std::time::Instant::now();
+                let dt = (now - *t).as_secs_f64();
+                *t = now;
+                dt
+            }
+            None => 0.0,
+        }
     }
 }
 
