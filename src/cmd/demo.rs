@@ -62,7 +62,7 @@ fn default_data_dir() -> PathBuf {
 /// Reads the demo files from `dir`, or generates them when any is missing. Returns the data and where it
 /// came from.
 fn load(dir: &Path) -> Result<(DemoData, String), Box<dyn std::error::Error>> {
-    let specs = partita_core::synth::room::RoomSpec::presets();
+    let specs = partita_room::room::RoomSpec::presets();
     let mut names = vec![DRY_FILE.to_string()];
     names.extend(specs.iter().map(demo_data::file_name));
     if names.iter().all(|n| dir.join(n).is_file()) {

@@ -26,7 +26,6 @@
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
 
-pub mod analysis;
 pub mod control;
 pub mod cost;
 pub mod denormal;

@@ -34,7 +34,7 @@
 //! simply stops before it has decayed enough is refused by the same check.
 //!
 //! ```
-//! use partita_core::analysis::{t30, OctaveBand, OctaveFilter, FilterPhase};
+//! use partita_room::analysis::{t30, OctaveBand, OctaveFilter, FilterPhase};
 //!
 //! // White noise under an exponential envelope with T60 = 2 s.
 //! let fs = 48_000.0;
@@ -48,7 +48,7 @@
 //! let filter = OctaveFilter::new(OctaveBand::from_nominal_hz(1000.0).unwrap(), fs, FilterPhase::Causal)?;
 //! let band = t30(&filter.process(&ir), fs)?;
 //! assert!((band - 2.0).abs() < 0.1);
-//! # Ok::<(), partita_core::analysis::AnalysisError>(())
+//! # Ok::<(), partita_room::analysis::AnalysisError>(())
 //! ```
 
 use std::f64::consts::PI;
@@ -703,7 +703,7 @@ mod tests {
 
     #[test]
     fn schroeder_curve_starts_at_zero_and_never_rises() {
-        let mut noise = crate::synth::Noise::new(9);
+        let mut noise = partita_core::synth::Noise::new(9);
         let h: Vec<f32> = (0..5000).map(|n| noise.sample() * (-(n as f32) / 800.0).exp()).collect();
         let edc = schroeder_decay_db(&h).unwrap();
         assert_eq!(edc[0], 0.0);
