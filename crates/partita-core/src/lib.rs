@@ -50,7 +50,7 @@ mod workers;
 pub use control::{Command, Control, Event, FadeState, PreparedIr, Refused, Status, SwapReport};
 pub use cost::{CostModel, MachineCosts, Shape};
 pub use engine::{Engine, EngineOptions, Monitor};
-pub use error::{ControlError, EngineError, IrError, PlanError, ProcessError, RoutingError};
+pub use error::{ControlError, EngineError, IrError, PlanError, ProcessError, RoutingError, RoutingParseError};
 pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
 pub use plan::{Level, Plan, Schedule};
