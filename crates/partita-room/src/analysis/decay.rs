@@ -178,7 +178,8 @@ impl DecayRange {
 
 /// Measures a reverberation time of `ir`: trims it to its onset ([`onset_index`]), computes the Schroeder curve
 /// ([`schroeder_decay_db`]), fits the `range` ([`fit_decay`]) and checks the noise headroom (module docs).
-/// Times in the result count from the onset. Band-filter the response first ([`OctaveFilter`]) for a band value.
+/// Times in the result count from the onset. Band-filter the response first
+/// ([`OctaveFilter`](super::OctaveFilter)) for a band value.
 ///
 /// # Errors
 /// Those of [`schroeder_decay_db`] and [`fit_decay`], and [`AnalysisError::NoiseFloorTooHigh`].
