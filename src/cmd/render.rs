@@ -3,9 +3,10 @@
 //!
 //! The pipeline per input: read the header (all inputs and the IR are checked before any work starts), load
 //! the IR at the input's rate (resampled when the rates differ, with a note), choose the routing from the IR's
-//! channels (or --routing) and the input's ([`partita_core::Routing::choose`]), convolve ([`convolve`]), mix `gain x (wet x convolved + dry x
-//! input)` ([`mix_into`]), cut the tail if asked, refuse non-finite output, and write to a temporary file
-//! beside the output that is renamed over it only when complete ([`partita_io::write_wav_atomic`]).
+//! channels (or --routing) and the input's ([`partita_core::Routing::choose`]), convolve ([`convolve`]), mix
+//! `gain x (wet x convolved + dry x input)` ([`mix_into`]), cut the tail if asked, refuse non-finite output,
+//! and write to a temporary file beside the output that is renamed over it only when complete
+//! ([`partita_io::write_wav_atomic`]).
 
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
