@@ -4,6 +4,7 @@
 
 pub use partita_core as core;
 pub use partita_io as io;
+pub use partita_room as room;
 
 pub mod calibration;
 pub mod measure;

@@ -276,6 +276,46 @@ fn channel_layouts_follow_the_ir_and_the_input() {
 }
 
 #[test]
+fn routing_is_given_with_routing_and_the_older_layout_flag_still_works() {
+    let dir = scratch("routing-flag");
+    let x = noise(1200, 21, 0.5);
+    let (h0, h1) = (noise(200, 22, 0.1), noise(200, 23, 0.1));
+    let (input, ir) = (dir.join("mono.wav"), dir.join("stereo-ir.wav"));
+    write_mono(&input, &x, 48_000);
+    write_f32(&ir, &[h0.clone(), h1.clone()], 48_000);
+    let (by_routing, by_layout) = (dir.join("routing.wav"), dir.join("layout.wav"));
+
+    // --routing matrix:1x2 (any case): input 0 to outputs 0 and 1 through IR channels 0 and 1.
+    ok(&render(&[s(&input), "--ir", s(&ir), "-o", s(&by_routing), "--routing", " Matrix:1X2 "]));
+    let got = read_wav(&by_routing).unwrap();
+    assert_eq!(got.channel_count(), 2);
+    assert!(max_rel_err(&got.channels[0], &convolve(&x, &h0)) < 2e-6);
+    assert!(max_rel_err(&got.channels[1], &convolve(&x, &h1)) < 2e-6);
+    // --layout is the same option under its older name: the same file, bit for bit.
+    ok(&render(&[s(&input), "--ir", s(&ir), "-o", s(&by_layout), "--layout", "matrix:1x2"]));
+    assert_eq!(std::fs::read(&by_layout).unwrap(), std::fs::read(&by_routing).unwrap());
+    // A routing that does not fit the input says which flag to change.
+    fails(
+        &render(&[s(&input), "--ir", s(&ir), "-o", s(&dir.join("no.wav")), "--routing", "matrix:2x1"]),
+        &[s(&input), s(&ir), "matrix:2x1", "1-channel input", "a 2-channel input", "--routing"],
+    );
+    // Text that names no routing is refused by the argument parser, with the accepted forms.
+    let out = render(&[s(&input), "--ir", s(&ir), "-o", s(&dir.join("no.wav")), "--routing", "quad"]);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    assert!(err.lines().next().unwrap().contains("matrix:MxN") && err.contains("quad"), "{err}");
+    assert!(!dir.join("no.wav").exists());
+
+    // Help shows --routing only.
+    for sub in ["render", "plan"] {
+        let out = Command::new(env!("CARGO_BIN_EXE_partita")).args([sub, "--help"]).output().unwrap();
+        let help = String::from_utf8_lossy(&out.stdout);
+        assert!(out.status.success() && help.contains("--routing"), "{sub}: {help}");
+        assert!(!help.contains("--layout"), "{sub} --help shows the hidden alias: {help}");
+    }
+}
+
+#[test]
 fn an_ir_at_another_rate_is_resampled_to_the_input_with_a_note() {
     let dir = scratch("rate-note");
     let x = noise(4800, 10, 0.5);

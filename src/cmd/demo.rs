@@ -9,11 +9,11 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use clap::Args;
-use partita_core::{CostModel, Engine, Planner, Schedule, Shape};
-use partita_io::{normalize, read_wav, write_wav_atomic, Dither, Layout, Normalize, SampleFormat};
+use partita_core::{CostModel, Engine, Planner, Routing, Schedule, Shape};
+use partita_io::{normalize, read_wav, write_wav_atomic, Dither, Normalize, SampleFormat};
 
 use super::demo_data::{self, DemoData, DemoSpace, DEMO_FORMAT, DRY_FILE};
-use super::render::{convolve, dry_sources, mix_into, offline_plan_for, routing_for, MixLevels};
+use super::render::{convolve, dry_sources, mix_into, offline_plan_for, MixLevels};
 use super::{dbfs, levels_list, print_levels, CmdResult};
 use partita::measure;
 
@@ -62,7 +62,7 @@ fn default_data_dir() -> PathBuf {
 /// Reads the demo files from `dir`, or generates them when any is missing. Returns the data and where it
 /// came from.
 fn load(dir: &Path) -> Result<(DemoData, String), Box<dyn std::error::Error>> {
-    let specs = partita_core::synth::room::RoomSpec::presets();
+    let specs = partita_room::room::RoomSpec::presets();
     let mut names = vec![DRY_FILE.to_string()];
     names.extend(specs.iter().map(demo_data::file_name));
     if names.iter().all(|n| dir.join(n).is_file()) {
@@ -152,17 +152,9 @@ pub fn run(args: DemoArgs) -> CmdResult {
             ir_audio = partita_io::resample(&ir_audio, rate).map_err(|e| format!("{}: {e}", ir_path.display()))?;
         }
         normalize(&mut ir_audio, Normalize::Energy).map_err(|e| format!("{}: {e}", ir_path.display()))?;
-        let layout =
-            Layout::from_channels(ir_audio.channel_count()).map_err(|e| format!("{}: {e}", ir_path.display()))?;
         let ir = partita_io::to_impulse_response(ir_audio, &ir_path)?;
-        let routing = routing_for(layout, ir.channels(), dry.channel_count()).ok_or_else(|| {
-            format!(
-                "{}: a {}-channel IR does not fit the {}-channel dry phrase",
-                ir_path.display(),
-                ir.channels(),
-                dry.channel_count()
-            )
-        })?;
+        let routing = Routing::choose(None, ir.channels(), dry.channel_count())
+            .map_err(|e| format!("{}: with the dry phrase: {e}", ir_path.display()))?;
         let map = routing.resolve(ir.channels()).map_err(|e| format!("{}: {e}", ir_path.display()))?;
         let shape = Shape::of(&map);
 

@@ -3,10 +3,10 @@
 //!
 //! - `tiled-stairwell.wav`, `timber-barn.wav`: [`render_room_ir`] of [`RoomSpec::tiled_stairwell`] and
 //!   [`RoomSpec::timber_barn`] (image sources + band-shaped decaying noise; see
-//!   `partita_core::synth::room`) with seed [`DEMO_SEED`], stereo, 48 kHz, each peak-normalized to
+//!   `partita_room::room`) with seed [`DEMO_SEED`], stereo, 48 kHz, each peak-normalized to
 //!   [`IR_PEAK_DBFS`].
 //! - `dry-phrase.wav`: [`demo_phrase`] at 48 kHz (plucked strings by Karplus-Strong and percussive hits;
-//!   see `partita_core::synth::phrase`), mono, peak -3 dBFS.
+//!   see `partita_room::phrase`), mono, peak -3 dBFS.
 //!
 //! All are written as 24-bit PCM with plain rounding. No dither: the phrase's gaps stay digital silence, and
 //! the IR tails, which decay about 100 dB below their -12 dBFS peaks, still end above one 24-bit step (the
@@ -18,10 +18,10 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use clap::Args;
-use partita_core::analysis::{t30, FilterPhase, OctaveFilter};
-use partita_core::synth::phrase::demo_phrase;
-use partita_core::synth::room::{render_room_ir, RoomSpec, DEMO_SEED, ROOM_BANDS};
 use partita_io::{write_wav_atomic, Audio, Dither, SampleFormat};
+use partita_room::analysis::{t30, FilterPhase, OctaveFilter};
+use partita_room::phrase::demo_phrase;
+use partita_room::room::{render_room_ir, RoomSpec, DEMO_SEED, ROOM_BANDS};
 
 use super::CmdResult;
 

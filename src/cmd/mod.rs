@@ -50,23 +50,6 @@ pub mod devices {
 /// What a subcommand returns: an error becomes one line on stderr and exit code 1.
 pub type CmdResult = Result<(), Box<dyn std::error::Error>>;
 
-/// A routing named on the command line: `mono`, `mono-to-stereo`, `stereo`, `true-stereo` or
-/// `matrix:MxN`.
-pub fn parse_routing(s: &str) -> Result<partita_core::Routing, String> {
-    s.parse::<partita_io::Layout>().map(partita_io::Layout::routing).map_err(|e| e.to_string())
-}
-
-/// IR channels a routing needs (the smallest count it accepts).
-pub fn ir_channels_for(routing: partita_core::Routing) -> usize {
-    use partita_core::Routing;
-    match routing {
-        Routing::Mono => 1,
-        Routing::MonoToStereo | Routing::Stereo => 2,
-        Routing::TrueStereo => 4,
-        Routing::Matrix { inputs, outputs } => inputs * outputs,
-    }
-}
-
 /// Prints a plan's levels as the table `partita plan` shows: one row per level (block, partitions, IR
 /// offset, taps, schedule), the direct-form head first when there is one.
 pub fn print_levels(plan: &partita_core::Plan) {

@@ -14,11 +14,11 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::{Duration, Instant};
 
 use clap::Args;
-use partita_core::{CostModel, Engine, EngineOptions, Kernel, Mix, Planner, Schedule, Shape};
+use partita_core::{CostModel, Engine, EngineOptions, Kernel, Mix, Planner, Routing, Schedule, Shape};
 use partita_device::{
     Ceiling, DeviceOptions, DeviceSelector, EngineSide, LiveDevices, SafetyOptions, Stats, StreamOptions,
 };
-use partita_io::{load_ir, read_wav_info, IrOptions, Layout, Normalize};
+use partita_io::{load_ir, read_wav_info, IrOptions, Normalize};
 use serde_json::json;
 
 use super::{dbfs, CmdResult};
@@ -27,10 +27,10 @@ use partita::calibration::machine_costs;
 /// Arguments of `partita monitor`.
 #[derive(Debug, Args)]
 pub struct MonitorArgs {
-    /// Impulse response (WAV): 1 channel mono, 2 stereo, 4 true stereo (or --layout).
+    /// Impulse response (WAV): 1 channel mono, 2 stereo, 4 true stereo (or --routing).
     #[arg(long, value_name = "IR.wav")]
     ir: PathBuf,
-    /// A second impulse response with the same channel layout; SIGHUP swaps between the two while running.
+    /// A second impulse response with the same channels and routing; SIGHUP swaps between the two while running.
     #[arg(long, value_name = "IR.wav")]
     alt_ir: Option<PathBuf>,
     /// Crossfade of a swap (SIGHUP), ms.
@@ -75,10 +75,10 @@ pub struct MonitorArgs {
     /// IR normalization: none (the exact file), peak or energy.
     #[arg(long, value_name = "MODE", default_value = "none")]
     normalize: Normalize,
-    /// IR layout instead of the one its channel count implies: mono, mono-to-stereo, stereo,
+    /// IR routing instead of the one its channel count implies: mono, mono-to-stereo, stereo,
     /// true-stereo or matrix:MxN.
-    #[arg(long, value_name = "LAYOUT")]
-    layout: Option<Layout>,
+    #[arg(long = "routing", alias = "layout", value_name = "ROUTING")]
+    routing: Option<Routing>,
     /// Sample rate for hosts that offer several [default: the output device's; JACK: the server's].
     #[arg(long, value_name = "HZ")]
     rate: Option<u32>,
@@ -170,13 +170,10 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     }
     eprintln!("{}", partita_device::CAUTION);
 
-    // The IR's header gives the layout, hence the engine's channels, before the devices are opened.
+    // The IR's header gives the routing, hence the engine's channels, before the devices are opened.
     let info = read_wav_info(&args.ir)?;
-    let layout = match args.layout {
-        Some(l) => l,
-        None => Layout::from_channels(usize::from(info.channels)).map_err(|e| format!("{}: {e}", args.ir.display()))?,
-    };
-    let routing = layout.routing();
+    let routing = Routing::choose_for_ir(args.routing, usize::from(info.channels))
+        .map_err(|e| format!("{}: {e}", args.ir.display()))?;
     let (inputs, outputs) = (routing.inputs(), routing.outputs());
     let device_options = DeviceOptions {
         host: args.host.clone(),
@@ -200,26 +197,26 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     let ir_options = IrOptions {
         sample_rate_hz: Some(rate),
         normalize: args.normalize,
-        layout: Some(layout),
+        routing: Some(routing),
         ..IrOptions::default()
     };
     let load = |path: &PathBuf| -> Result<partita_core::ImpulseResponse, Box<dyn std::error::Error>> {
-        let prepared = load_ir(path, &ir_options)?;
-        if prepared.source.sample_rate_hz != rate {
+        let loaded = load_ir(path, &ir_options)?;
+        if loaded.source.sample_rate_hz != rate {
             eprintln!(
                 "note: {} was resampled from {} Hz to the device's {rate} Hz",
                 path.display(),
-                prepared.source.sample_rate_hz
+                loaded.source.sample_rate_hz
             );
         }
-        Ok(prepared.ir)
+        Ok(loaded.ir)
     };
     let ir = load(&args.ir)?;
     let alt = args.alt_ir.as_ref().map(&load).transpose()?;
     if let Some(alt) = &alt {
         if alt.channels() != ir.channels() {
             return Err(format!(
-                "{}: {} channels, but {} has {}; the two IRs need the same layout",
+                "{}: {} channels, but {} has {}; the two IRs need the same channels and routing",
                 args.alt_ir.as_ref().map_or(String::new(), |p| p.display().to_string()),
                 alt.channels(),
                 args.ir.display(),

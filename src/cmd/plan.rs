@@ -5,7 +5,7 @@ use clap::Args;
 use partita_core::{CostModel, Engine, ImpulseResponse, Plan, PlanMode, Planner, Routing, Schedule, Shape};
 use serde_json::json;
 
-use super::{parse_routing, CmdResult};
+use super::CmdResult;
 use partita::calibration::machine_costs;
 use partita::measure;
 
@@ -33,8 +33,8 @@ pub struct PlanArgs {
     /// IR channels: 1 mono, 2 stereo, 4 true stereo (LL LR RL RR) [default: 1, or the IR file's].
     #[arg(long, value_name = "N", conflicts_with = "routing")]
     channels: Option<usize>,
-    /// Routing: mono, mono-to-stereo, stereo, true-stereo or matrix:MxN.
-    #[arg(long, value_name = "R", value_parser = parse_routing)]
+    /// Routing: mono, mono-to-stereo, stereo, true-stereo or matrix:MxN [default: from the IR channels].
+    #[arg(long = "routing", alias = "layout", value_name = "R")]
     routing: Option<Routing>,
     /// Schedule of levels larger than the block: sync, workers or sliced.
     #[arg(long, default_value = "sync")]
@@ -91,16 +91,6 @@ fn parse_levels(s: &str) -> Result<Vec<(usize, usize)>, String> {
         .collect()
 }
 
-/// The routing for an IR channel count when none is given.
-fn routing_for_channels(channels: usize) -> Result<Routing, String> {
-    match channels {
-        1 => Ok(Routing::Mono),
-        2 => Ok(Routing::Stereo),
-        4 => Ok(Routing::TrueStereo),
-        n => Err(format!("{n} IR channels need an explicit --routing (e.g. matrix:MxN)")),
-    }
-}
-
 /// Runs `partita plan`.
 pub fn run(args: PlanArgs) -> CmdResult {
     let (ir_frames, ir_channels, rate) = match (&args.ir, args.ir_seconds) {
@@ -129,11 +119,9 @@ pub fn run(args: PlanArgs) -> CmdResult {
                 .into());
             }
             let channels = usize::from(info.channels);
-            if let Some(routing) = args.routing {
-                routing.resolve(channels).map_err(|e| format!("{}: {e}", path.display()))?;
-            }
-            if args.channels.is_none() && args.routing.is_none() {
-                routing_for_channels(channels).map_err(|e| format!("{}: {e}", path.display()))?;
+            if args.channels.is_none() {
+                // The file's channels must fit the routing given, or have a default one.
+                Routing::choose_for_ir(args.routing, channels).map_err(|e| format!("{}: {e}", path.display()))?;
             }
             (frames as usize, channels, rate)
         }
@@ -143,18 +131,15 @@ pub fn run(args: PlanArgs) -> CmdResult {
                 return Err(format!("--ir-seconds must be a positive number of seconds, got {s}").into());
             }
             let frames = (s * f64::from(rate)).round().max(1.0) as usize;
-            (frames, args.channels.unwrap_or(1), rate)
+            (frames, args.routing.map_or(1, |r| r.ir_channels()), rate)
         }
         (None, None) => return Err("give the IR length with --ir-seconds S or an IR file with --ir FILE".into()),
     };
     if rate == 0 {
         return Err("--rate must be above 0 Hz".into());
     }
-    let routing = match args.routing {
-        Some(r) => r,
-        None => routing_for_channels(args.channels.unwrap_or(ir_channels))?,
-    };
-    let map = routing.resolve(super::ir_channels_for(routing))?;
+    let routing = Routing::choose_for_ir(args.routing, args.channels.unwrap_or(ir_channels))?;
+    let map = routing.resolve(routing.ir_channels())?;
     let shape = Shape::of(&map);
 
     let model = match args.model.as_str() {
@@ -192,7 +177,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
 
     // Build the engine: it gives the exact memory figure, and --measure runs it.
     let taps = partita_core::synth::decaying_noise(ir_frames, (ir_frames as f64 / 2.0).max(1.0), 1);
-    let ir = ImpulseResponse::new(vec![taps; super::ir_channels_for(routing)], rate)?;
+    let ir = ImpulseResponse::new(vec![taps; routing.ir_channels()], rate)?;
     let options = partita_core::EngineOptions {
         realtime_workers: args.realtime_workers,
         ..partita_core::EngineOptions::new(plan.block_frames)

@@ -2,10 +2,11 @@
 //! engine's latency removed, several files in parallel, each written atomically.
 //!
 //! The pipeline per input: read the header (all inputs and the IR are checked before any work starts), load
-//! the IR at the input's rate (resampled when the rates differ, with a note), choose the routing from the IR
-//! layout and the input's channel count, convolve ([`convolve`]), mix `gain x (wet x convolved + dry x
-//! input)` ([`mix_into`]), cut the tail if asked, refuse non-finite output, and write to a temporary file
-//! beside the output that is renamed over it only when complete ([`partita_io::write_wav_atomic`]).
+//! the IR at the input's rate (resampled when the rates differ, with a note), choose the routing from the IR's
+//! channels (or --routing) and the input's ([`partita_core::Routing::choose`]), convolve ([`convolve`]), mix
+//! `gain x (wet x convolved + dry x input)` ([`mix_into`]), cut the tail if asked, refuse non-finite output,
+//! and write to a temporary file beside the output that is renamed over it only when complete
+//! ([`partita_io::write_wav_atomic`]).
 
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
@@ -18,8 +19,8 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use partita_core::offline::{self, RenderError, OFFLINE_MAX_LEVEL_FRAMES};
 use partita_core::{ImpulseResponse, Plan, PlanError, Routing, Shape};
 use partita_io::{
-    load_ir, read_wav, read_wav_info, resample, write_wav_atomic, Audio, Dither, IrOptions, Layout, Normalize,
-    PrepareError, PreparedIr, SampleFormat, WavInfo,
+    load_ir, read_wav, read_wav_info, resample_signal, write_wav_atomic, Dither, IrOptions, LoadedIr, Normalize,
+    SampleFormat, WavInfo,
 };
 
 use super::{dbfs, CmdResult};
@@ -28,7 +29,7 @@ use super::{dbfs, CmdResult};
 #[derive(Debug, Args)]
 pub struct RenderArgs {
     /// Input WAV files (the dry signals): PCM 8 to 32-bit or float 32/64-bit, mono or stereo (or the inputs of
-    /// a --layout matrix:MxN).
+    /// a --routing matrix:MxN).
     #[arg(value_name = "INPUT", required = true)]
     inputs: Vec<PathBuf>,
     /// Impulse response (WAV). Channels: 1 mono (serves a mono or stereo input), 2 stereo (a mono input
@@ -67,10 +68,10 @@ pub struct RenderArgs {
     /// two, 256 to 16384, with larger FFT levels behind it].
     #[arg(long, value_name = "N")]
     block: Option<usize>,
-    /// IR layout instead of the one its channel count implies: mono, mono-to-stereo, stereo, true-stereo or
-    /// matrix:MxN.
-    #[arg(long, value_name = "LAYOUT")]
-    layout: Option<Layout>,
+    /// IR routing instead of the one its channel count implies: mono, mono-to-stereo, stereo, true-stereo or
+    /// matrix:MxN (M inputs, N outputs; IR channel m x N + n feeds input m to output n).
+    #[arg(long = "routing", alias = "layout", value_name = "ROUTING")]
+    routing: Option<Routing>,
     /// Output sample rate: inputs and the IR are resampled to it. Without it the output has each input's
     /// rate; only the IR is ever resampled.
     #[arg(long, value_name = "HZ")]
@@ -151,45 +152,6 @@ pub fn convolve(
     progress: Option<&(dyn Fn(u64, u64) + Sync)>,
 ) -> Result<Vec<Vec<f32>>, RenderError> {
     offline::render(plan, ir, routing, inputs, threads, progress)
-}
-
-/// Resamples a *signal* to `to_hz`, keeping its waveform and level. Allocates. ([`partita_io::resample`] is
-/// made for IRs: it scales taps by from / to to keep a filter's gain; a signal must not change level, so that
-/// scale is undone here.)
-///
-/// # Errors
-/// As [`partita_io::resample`].
-pub fn resample_signal(audio: &Audio, to_hz: u32) -> Result<Audio, PrepareError> {
-    let mut out = resample(audio, to_hz)?;
-    let undo = f64::from(to_hz) / f64::from(audio.sample_rate_hz);
-    for v in out.channels.iter_mut().flatten() {
-        *v = (f64::from(*v) * undo) as f32;
-    }
-    Ok(out)
-}
-
-/// The routing for an IR layout (with `ir_channels`) on an input of `input_channels`, if they fit.
-pub fn routing_for(layout: Layout, ir_channels: usize, input_channels: usize) -> Option<Routing> {
-    match (layout, ir_channels, input_channels) {
-        (Layout::Mono, _, 1) => Some(Routing::Mono),
-        (Layout::Mono, _, 2) => Some(Routing::Stereo),
-        (Layout::Stereo, 1, 1) => Some(Routing::Mono),
-        (Layout::Stereo, _, 1) | (Layout::MonoToStereo, _, 1) => Some(Routing::MonoToStereo),
-        (Layout::Stereo, _, 2) => Some(Routing::Stereo),
-        (Layout::TrueStereo, _, 2) => Some(Routing::TrueStereo),
-        (Layout::Matrix { inputs, outputs }, _, n) if n == inputs => Some(Routing::Matrix { inputs, outputs }),
-        _ => None,
-    }
-}
-
-/// What input a layout takes, for messages.
-fn layout_takes(layout: Layout) -> String {
-    match layout {
-        Layout::Mono | Layout::Stereo => "a mono or stereo input".into(),
-        Layout::MonoToStereo => "a mono input".into(),
-        Layout::TrueStereo => "a stereo (2-channel) input".into(),
-        Layout::Matrix { inputs, .. } => format!("a {inputs}-channel input"),
-    }
 }
 
 /// Whether two paths name one existing file (hard links and symbolic links included).
@@ -299,7 +261,7 @@ struct Output {
 
 fn render_job(
     job: &Job,
-    ir: &PreparedIr,
+    ir: &LoadedIr,
     out: Output,
     threads: usize,
     progress: &(dyn Fn(u64, u64) + Sync),
@@ -421,7 +383,7 @@ pub fn run(args: RenderArgs) -> CmdResult {
 
     // The IR at every output rate needed, loaded and checked once per rate.
     let rates: Vec<u32> = infos.iter().map(|i| args.rate.unwrap_or(i.sample_rate_hz)).collect();
-    let mut irs: Vec<PreparedIr> = Vec::new();
+    let mut irs: Vec<LoadedIr> = Vec::new();
     for &rate in &rates {
         if irs.iter().any(|p| p.ir.sample_rate_hz() == rate) {
             continue;
@@ -429,7 +391,7 @@ pub fn run(args: RenderArgs) -> CmdResult {
         let options = IrOptions {
             sample_rate_hz: Some(rate),
             normalize: args.normalize,
-            layout: args.layout,
+            routing: args.routing,
             ..IrOptions::default()
         };
         let prepared = load_ir(&args.ir, &options)?;
@@ -469,16 +431,8 @@ pub fn run(args: RenderArgs) -> CmdResult {
         let index = irs.iter().position(|p| p.ir.sample_rate_hz() == rate).unwrap_or(0);
         let ir = &irs[index];
         let channels = usize::from(info.channels);
-        let routing = routing_for(ir.layout, ir.ir.channels(), channels).ok_or_else(|| {
-            format!(
-                "{}: a {channels}-channel input does not fit the {} IR {ir_name} ({} channels), which takes {}; \
-                 give such an input or another --layout",
-                input.display(),
-                ir.layout,
-                ir.ir.channels(),
-                layout_takes(ir.layout)
-            )
-        })?;
+        let routing = Routing::choose(args.routing, ir.ir.channels(), channels)
+            .map_err(|e| format!("{}: the IR {ir_name}: {e}", input.display()))?;
         let map = routing.resolve(ir.ir.channels()).map_err(|e| format!("{ir_name}: {e}"))?;
         let dry = dry_sources(map.inputs, map.outputs);
         if dry.is_none() && args.dry != 0.0 {
@@ -486,7 +440,7 @@ pub fn run(args: RenderArgs) -> CmdResult {
                 "{}: --dry needs the output channels to match the input's (or a mono input), but the {} IR \
                  {ir_name} maps {} inputs to {} outputs; use --dry 0",
                 input.display(),
-                ir.layout,
+                ir.routing,
                 map.inputs,
                 map.outputs
             )

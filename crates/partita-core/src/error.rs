@@ -2,6 +2,8 @@
 
 use std::fmt;
 
+use crate::Routing;
+
 /// Why an [`ImpulseResponse`](crate::ImpulseResponse) was refused.
 #[derive(Debug, Clone, PartialEq)]
 #[non_exhaustive]
@@ -137,8 +139,9 @@ impl fmt::Display for PlanError {
 
 impl std::error::Error for PlanError {}
 
-/// Why a routing does not fit an impulse response.
+/// Why a routing does not fit an impulse response or an input, or none could be chosen.
 #[derive(Debug, Clone, PartialEq, Eq)]
+#[non_exhaustive]
 pub enum RoutingError {
     /// The routing needs a different number of IR channels.
     ChannelCount {
@@ -151,6 +154,20 @@ pub enum RoutingError {
     },
     /// A matrix needs at least one input and one output.
     EmptyMatrix,
+    /// No routing was given and none follows from the IR's channel count (only 1, 2 and 4 have a default).
+    NoDefault {
+        /// IR channels.
+        ir_channels: usize,
+    },
+    /// The routing (given, or the IR's default) does not take an input of this many channels.
+    InputChannels {
+        /// The routing of the impulse response.
+        routing: Routing,
+        /// IR channels.
+        ir_channels: usize,
+        /// Channels of the input.
+        input_channels: usize,
+    },
 }
 
 impl fmt::Display for RoutingError {
@@ -160,11 +177,42 @@ impl fmt::Display for RoutingError {
                 write!(f, "{routing} routing needs an impulse response with {expected} channel(s), got {got}")
             }
             Self::EmptyMatrix => write!(f, "a routing matrix needs at least 1 input and 1 output"),
+            Self::NoDefault { ir_channels } => write!(
+                f,
+                "no default routing for a {ir_channels}-channel impulse response (1 is mono, 2 stereo, 4 true \
+                 stereo); give the routing explicitly, e.g. --routing matrix:MxN with M x N = {ir_channels}"
+            ),
+            Self::InputChannels { routing, ir_channels, input_channels } => write!(
+                f,
+                "a {input_channels}-channel input does not fit the {routing} routing of a {ir_channels}-channel \
+                 impulse response, which takes {}; give such an input or another --routing",
+                routing.takes()
+            ),
         }
     }
 }
 
 impl std::error::Error for RoutingError {}
+
+/// Text that names no routing (see [`Routing`]'s `FromStr`).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct RoutingParseError {
+    /// The text given.
+    pub given: String,
+}
+
+impl fmt::Display for RoutingParseError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "unknown routing \"{}\"; use mono, mono-to-stereo, stereo, true-stereo or matrix:MxN (M inputs, N \
+             outputs, both at least 1)",
+            self.given
+        )
+    }
+}
+
+impl std::error::Error for RoutingParseError {}
 
 /// Why an [`Engine`](crate::Engine) could not be built.
 #[derive(Debug, Clone, PartialEq)]

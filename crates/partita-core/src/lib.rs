@@ -26,7 +26,6 @@
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
 
-pub mod analysis;
 pub mod control;
 pub mod denormal;
 mod engine;
@@ -46,7 +45,9 @@ mod threads;
 
 pub use control::{Command, Control, Event, FadeState, Monitor, Refused, Status, SwapReport};
 pub use engine::{Engine, EngineOptions, Mix};
-pub use error::{ControlError, EngineError, IrError, MixError, PlanError, ProcessError, RoutingError};
+pub use error::{
+    ControlError, EngineError, IrError, MixError, PlanError, ProcessError, RoutingError, RoutingParseError,
+};
 pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
 pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};

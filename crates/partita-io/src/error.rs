@@ -1,4 +1,4 @@
-//! Errors: [`IoError`] for anything tied to a file, [`PrepareError`] for IR preparation on audio in memory,
+//! Errors: [`IoError`] for anything tied to a file, [`ConditionError`] for conditioning IR taps in memory,
 //! [`ParseError`] for option strings.
 //!
 //! Every `Display` is one line. File errors start with the file name, then say what is wrong and what to do.
@@ -7,10 +7,9 @@ use std::fmt;
 use std::io;
 use std::path::PathBuf;
 
-use partita_core::{IrError, RoutingError};
+use partita_core::{IrError, Routing, RoutingError};
 
 use crate::info::Encoding;
-use crate::layout::Layout;
 
 /// A WAV file could not be read or written, or an impulse response loaded from a file was refused.
 ///
@@ -183,12 +182,13 @@ pub enum IoError {
         /// The core's reason.
         source: IrError,
     },
-    /// Preparing the impulse response failed.
-    Prepare {
+    /// Conditioning the impulse response (resampling, trimming, normalization) failed, or its routing does not
+    /// fit it.
+    Condition {
         /// The file.
         path: PathBuf,
         /// The reason.
-        source: PrepareError,
+        source: ConditionError,
     },
     /// Writing failed (creating, writing, syncing or renaming the file).
     Write {
@@ -395,7 +395,7 @@ impl fmt::Display for IoError {
                 path.display()
             ),
             Self::Ir { path, source } => write!(f, "{}: {source}", path.display()),
-            Self::Prepare { path, source } => write!(f, "{}: {source}", path.display()),
+            Self::Condition { path, source } => write!(f, "{}: {source}", path.display()),
             Self::Write { path, source } => write!(f, "{}: cannot write: {source}", path.display()),
             Self::WriteChannels { path, channels } => {
                 write!(f, "{}: cannot write {channels} channels; a WAV holds 1 to 65535", path.display())
@@ -429,7 +429,7 @@ impl std::error::Error for IoError {
         match self {
             Self::Open { source, .. } | Self::Read { source, .. } | Self::Write { source, .. } => Some(source),
             Self::Ir { source, .. } => Some(source),
-            Self::Prepare { source, .. } => Some(source),
+            Self::Condition { source, .. } => Some(source),
             _ => None,
         }
     }
@@ -459,7 +459,7 @@ impl IoError {
             | Self::EmptyIr { path }
             | Self::IrTooLong { path, .. }
             | Self::Ir { path, .. }
-            | Self::Prepare { path, .. }
+            | Self::Condition { path, .. }
             | Self::Write { path, .. }
             | Self::WriteChannels { path, .. }
             | Self::WriteUnequalChannels { path, .. }
@@ -470,11 +470,11 @@ impl IoError {
     }
 }
 
-/// Impulse-response preparation on audio in memory failed. [`load_ir`](crate::load_ir) wraps it in
-/// [`IoError::Prepare`] with the file name.
+/// Conditioning impulse-response taps in memory (resampling, trimming, normalization) failed, or no routing fits
+/// them. [`load_ir`](crate::load_ir) wraps it in [`IoError::Condition`] with the file name.
 #[derive(Debug, Clone, PartialEq)]
 #[non_exhaustive]
-pub enum PrepareError {
+pub enum ConditionError {
     /// Resampling from or to 0 Hz.
     ResampleZeroRate {
         /// Source rate.
@@ -512,15 +512,15 @@ pub enum PrepareError {
     },
     /// Peak or energy normalization of an all-zero impulse response.
     Silent,
-    /// No layout follows from this channel count; the user must give one.
-    LayoutNeeded {
+    /// No routing follows from this channel count; the user must give one.
+    RoutingNeeded {
         /// IR channels.
         channels: usize,
     },
-    /// The layout given does not fit the IR's channel count.
-    LayoutMismatch {
-        /// The layout given.
-        layout: Layout,
+    /// The routing given does not fit the IR's channel count.
+    RoutingMismatch {
+        /// The routing given.
+        routing: Routing,
         /// IR channels.
         channels: usize,
         /// The core's reason.
@@ -528,7 +528,7 @@ pub enum PrepareError {
     },
 }
 
-impl fmt::Display for PrepareError {
+impl fmt::Display for ConditionError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::ResampleZeroRate { from_hz, to_hz } => {
@@ -550,28 +550,28 @@ impl fmt::Display for PrepareError {
                  give a negative value such as -90"
             ),
             Self::Silent => write!(f, "the impulse response is all zeros; it cannot be normalized (use none)"),
-            Self::LayoutNeeded { channels } => write!(
+            Self::RoutingNeeded { channels } => write!(
                 f,
-                "no default layout for a {channels}-channel impulse response (1 is mono, 2 stereo, 4 true \
-                 stereo); give the layout explicitly, e.g. matrix:MxN with M x N = {channels}"
+                "no default routing for a {channels}-channel impulse response (1 is mono, 2 stereo, 4 true \
+                 stereo); give the routing explicitly, e.g. matrix:MxN with M x N = {channels}"
             ),
-            Self::LayoutMismatch { layout, channels, source } => {
-                write!(f, "layout {layout} does not fit a {channels}-channel impulse response: {source}")
+            Self::RoutingMismatch { routing, channels, source } => {
+                write!(f, "routing {routing} does not fit a {channels}-channel impulse response: {source}")
             }
         }
     }
 }
 
-impl std::error::Error for PrepareError {
+impl std::error::Error for ConditionError {
     fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
         match self {
-            Self::LayoutMismatch { source, .. } => Some(source),
+            Self::RoutingMismatch { source, .. } => Some(source),
             _ => None,
         }
     }
 }
 
-/// An option string (sample format, layout, normalization) was not understood.
+/// An option string (sample format, normalization) was not understood.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct ParseError {
     /// What was being parsed, e.g. `"sample format"`.

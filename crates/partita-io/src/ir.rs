@@ -2,13 +2,12 @@
 
 use std::path::Path;
 
-use partita_core::{ImpulseResponse, IrError};
+use partita_core::{ImpulseResponse, IrError, Routing};
 
 use crate::audio::Audio;
-use crate::error::IoError;
+use crate::condition::{normalize, resample, resampled_frames, trim_tail, Normalize};
+use crate::error::{ConditionError, IoError};
 use crate::info::WavInfo;
-use crate::layout::Layout;
-use crate::prepare::{normalize, resample, resampled_frames, trim_tail, Normalize};
 use crate::read::{read_checked, MAX_DECODED_BYTES};
 
 /// The longest impulse response accepted, in frames per channel (after resampling): 2^24 = 16,777,216 taps,
@@ -17,7 +16,7 @@ use crate::read::{read_checked, MAX_DECODED_BYTES};
 pub const MAX_IR_FRAMES: u64 = 1 << 24;
 
 /// What [`load_ir`] does to the file's taps. The default does nothing: no resampling, no trimming, no gain,
-/// the layout from the channel count.
+/// the routing from the channel count.
 #[derive(Debug, Clone, Copy, PartialEq, Default)]
 pub struct IrOptions {
     /// Resample to this rate (the engine's) when the file's rate differs.
@@ -26,17 +25,17 @@ pub struct IrOptions {
     pub trim_tail_db: Option<f64>,
     /// Gain normalization; see [`Normalize`].
     pub normalize: Normalize,
-    /// The layout; `None` derives it from the channel count ([`Layout::from_channels`]).
-    pub layout: Option<Layout>,
+    /// The routing; `None` derives it from the channel count ([`Routing::for_ir_channels`]).
+    pub routing: Option<Routing>,
 }
 
 /// An impulse response loaded by [`load_ir`], with what was done to it.
 #[derive(Debug, Clone, PartialEq)]
-pub struct PreparedIr {
+pub struct LoadedIr {
     /// The validated taps, at the engine's rate.
     pub ir: ImpulseResponse,
-    /// The layout that was checked against the channel count.
-    pub layout: Layout,
+    /// The routing that was checked against the channel count (the one given, or the count's default).
+    pub routing: Routing,
     /// The file's header.
     pub source: WavInfo,
     /// Frames removed by tail trimming (at the file's rate).
@@ -45,8 +44,9 @@ pub struct PreparedIr {
     pub gain: f64,
 }
 
-/// Reads, checks and prepares an impulse response: read the WAV, check the layout against its channels,
-/// trim the tail, resample to the engine's rate (keeping the frequency response), normalize, validate.
+/// Reads, checks and conditions an impulse response: read the WAV, choose its routing from its channels
+/// ([`Routing::choose_for_ir`]), trim the tail, resample to the engine's rate (keeping the frequency response),
+/// normalize, validate.
 /// Allocates.
 ///
 /// The length limit [`MAX_IR_FRAMES`] is checked from the header (scaled by the resampling ratio) before any
@@ -54,10 +54,10 @@ pub struct PreparedIr {
 ///
 /// # Errors
 /// Every [`read_wav`](crate::read_wav) error; [`IoError::EmptyIr`] for 0 frames; [`IoError::IrTooLong`];
-/// [`IoError::Prepare`] for a missing or unfitting layout, a bad threshold, a silent IR with normalization;
+/// [`IoError::Condition`] for a missing or unfitting routing, a bad threshold, a silent IR with normalization;
 /// [`IoError::Ir`] if the core refuses the taps. All name the file.
-pub fn load_ir(path: &Path, options: &IrOptions) -> Result<PreparedIr, IoError> {
-    let prepare_err = |source| IoError::Prepare { path: path.to_path_buf(), source };
+pub fn load_ir(path: &Path, options: &IrOptions) -> Result<LoadedIr, IoError> {
+    let condition_err = |source| IoError::Condition { path: path.to_path_buf(), source };
     let (source, mut audio) = read_checked(path, MAX_DECODED_BYTES, |info| {
         let frames = match options.sample_rate_hz {
             Some(to_hz) => resampled_frames(info.frames, info.sample_rate_hz, to_hz),
@@ -71,24 +71,26 @@ pub fn load_ir(path: &Path, options: &IrOptions) -> Result<PreparedIr, IoError> 
     if audio.frames() == 0 {
         return Err(IoError::EmptyIr { path: path.to_path_buf() });
     }
-    let layout = match options.layout {
-        Some(layout) => layout,
-        None => Layout::from_channels(audio.channel_count()).map_err(prepare_err)?,
-    };
-    layout.check(audio.channel_count()).map_err(prepare_err)?;
+    let channels = audio.channel_count();
+    let routing = Routing::choose_for_ir(options.routing, channels).map_err(|source| {
+        condition_err(match (options.routing, source) {
+            (Some(routing), source) => ConditionError::RoutingMismatch { routing, channels, source },
+            (None, _) => ConditionError::RoutingNeeded { channels },
+        })
+    })?;
     let trimmed_frames = match options.trim_tail_db {
-        Some(db) => trim_tail(&mut audio, db).map_err(prepare_err)?,
+        Some(db) => trim_tail(&mut audio, db).map_err(condition_err)?,
         None => 0,
     };
     if let Some(to_hz) = options.sample_rate_hz {
-        audio = resample(&audio, to_hz).map_err(prepare_err)?;
+        audio = resample(&audio, to_hz).map_err(condition_err)?;
     }
-    let gain = normalize(&mut audio, options.normalize).map_err(prepare_err)?;
+    let gain = normalize(&mut audio, options.normalize).map_err(condition_err)?;
     let ir = to_impulse_response(audio, path)?;
-    Ok(PreparedIr { ir, layout, source, trimmed_frames, gain })
+    Ok(LoadedIr { ir, routing, source, trimmed_frames, gain })
 }
 
-/// Turns prepared audio into the core's [`ImpulseResponse`], naming `path` in any error. Takes the samples
+/// Turns conditioned audio into the core's [`ImpulseResponse`], naming `path` in any error. Takes the samples
 /// without copying.
 ///
 /// # Errors

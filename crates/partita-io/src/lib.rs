@@ -1,6 +1,6 @@
 //! # partita-io
 //!
-//! WAV files in and out, and impulse-response preparation for the [`partita_core`] engine.
+//! WAV files in and out, and loading and conditioning of impulse responses for the [`partita_core`] engine.
 //!
 //! - Reading ([`read_wav`], [`read_wav_info`]): integer PCM 8/16/24/32-bit and IEEE float 32/64-bit, plain or
 //!   `WAVE_FORMAT_EXTENSIBLE`, any channel count, to planar f32 ([`Audio`]). Integer samples are scaled as
@@ -8,13 +8,14 @@
 //!   panic; files whose decoded samples would exceed [`MAX_DECODED_BYTES`] are refused before allocating.
 //! - Writing ([`write_wav`], [`write_wav_atomic`]): 32-bit float, or 24/16-bit PCM with TPDF [`Dither`]
 //!   (on by default), through hound.
-//! - Preparation ([`prepare`], [`load_ir`]): resampling to the engine's rate with the frequency response kept
-//!   (taps scaled by old rate / new rate), optional tail trimming and normalization (none by default, so a
-//!   render is the exact convolution with the file), and the channel [`Layout`] (1 mono, 2 stereo, 4 true
-//!   stereo LL LR RL RR, or `matrix:MxN` given explicitly).
+//! - Conditioning ([`condition`], [`load_ir`]): resampling to the engine's rate with the frequency response
+//!   kept (taps scaled by old rate / new rate), optional tail trimming and normalization (none by default, so
+//!   a render is the exact convolution with the file), and the core's [`Routing`](partita_core::Routing) (1
+//!   channel mono, 2 stereo, 4 true stereo LL LR RL RR, or `matrix:MxN` given explicitly).
 //!
 //! ```
-//! use partita_io::{load_ir, read_wav, write_wav_atomic, Dither, IrOptions, Layout, SampleFormat};
+//! use partita_core::Routing;
+//! use partita_io::{load_ir, read_wav, write_wav_atomic, Dither, IrOptions, SampleFormat};
 //!
 //! let dir = std::env::temp_dir().join(format!("partita-io-doc-{}", std::process::id()));
 //! std::fs::create_dir_all(&dir)?;
@@ -31,9 +32,9 @@
 //!
 //! // Ready for a 48 kHz engine: 4410 frames become ceil(4410 x 48000 / 44100) = 4800.
 //! let options = IrOptions { sample_rate_hz: Some(48_000), ..IrOptions::default() };
-//! let prepared = load_ir(&path, &options)?;
-//! assert_eq!(prepared.layout, Layout::Stereo);
-//! assert_eq!((prepared.ir.frames(), prepared.ir.sample_rate_hz()), (4800, 48_000));
+//! let loaded = load_ir(&path, &options)?;
+//! assert_eq!(loaded.routing, Routing::Stereo);
+//! assert_eq!((loaded.ir.frames(), loaded.ir.sample_rate_hz()), (4800, 48_000));
 //!
 //! // Faults are one line naming the file.
 //! std::fs::write(dir.join("notes.txt"), b"hello")?;
@@ -47,21 +48,19 @@
 #![forbid(unsafe_code)]
 
 mod audio;
+pub mod condition;
 mod dither;
 mod error;
 mod info;
 mod ir;
-mod layout;
-pub mod prepare;
 mod read;
 mod write;
 
 pub use audio::Audio;
+pub use condition::{normalize, resample, resample_signal, resampled_frames, trim_tail, Normalize};
 pub use dither::Dither;
-pub use error::{IoError, ParseError, PrepareError};
+pub use error::{ConditionError, IoError, ParseError};
 pub use info::{Encoding, WavInfo, WAVE_FORMAT_EXTENSIBLE, WAVE_FORMAT_IEEE_FLOAT, WAVE_FORMAT_PCM};
-pub use ir::{load_ir, to_impulse_response, IrOptions, PreparedIr, MAX_IR_FRAMES};
-pub use layout::Layout;
-pub use prepare::{normalize, resample, resampled_frames, trim_tail, Normalize};
+pub use ir::{load_ir, to_impulse_response, IrOptions, LoadedIr, MAX_IR_FRAMES};
 pub use read::{read_wav, read_wav_info, read_wav_limited, MAX_DECODED_BYTES};
 pub use write::{write_wav, write_wav_atomic, SampleFormat, MAX_WAV_DATA_BYTES};

@@ -6,7 +6,7 @@ mod support;
 use std::fs::OpenOptions;
 
 use partita_core::synth::Noise;
-use partita_io::{load_ir, read_wav, read_wav_info, read_wav_limited, Encoding, IoError, IrOptions, PrepareError};
+use partita_io::{load_ir, read_wav, read_wav_info, read_wav_limited, ConditionError, Encoding, IoError, IrOptions};
 use support::*;
 
 #[test]
@@ -325,10 +325,10 @@ fn ir_longer_than_the_limit_is_refused_from_the_header() {
 }
 
 #[test]
-fn layout_faults_name_the_file() {
+fn routing_faults_name_the_file() {
     let path = file("three.wav", &wav(1, 3, 48_000, 16, &pcm_bytes(&[100, 200, 300], 16)));
     let err = load_ir(&path, &IrOptions::default()).unwrap_err();
-    assert!(matches!(err, IoError::Prepare { source: PrepareError::LayoutNeeded { channels: 3 }, .. }), "{err:?}");
+    assert!(matches!(err, IoError::Condition { source: ConditionError::RoutingNeeded { channels: 3 }, .. }), "{err:?}");
     assert_names_file(&err, &path);
     assert!(err.to_string().contains("matrix:MxN"), "{err}");
 }

@@ -1,8 +1,5 @@
 //! Seeded synthetic signals for tests, benches and demos: reproducible noise and decaying-noise IRs.
 
-pub mod phrase;
-pub mod room;
-
 /// A small, fast, seeded generator (SplitMix64, Steele, Lea & Flood, OOPSLA 2014). Not cryptographic.
 #[derive(Debug, Clone)]
 pub struct Noise {

@@ -1,11 +1,12 @@
-//! IR preparation: resampling keeps the frequency response, trimming, normalization, layouts, and `load_ir`.
+//! IR conditioning: resampling keeps the frequency response, trimming, normalization, routings, and `load_ir`.
 
 mod support;
 
 use partita_core::synth::{decaying_noise, Noise};
+use partita_core::Routing;
 use partita_io::{
-    load_ir, normalize, resample, resampled_frames, to_impulse_response, trim_tail, write_wav, Audio, Dither, IoError,
-    IrOptions, Layout, Normalize, PrepareError, SampleFormat,
+    load_ir, normalize, resample, resampled_frames, to_impulse_response, trim_tail, write_wav, Audio, ConditionError,
+    Dither, IoError, IrOptions, Normalize, SampleFormat,
 };
 use support::*;
 
@@ -91,16 +92,16 @@ fn resampling_handles_channels_independently_and_edge_cases() {
     // Faults. A 7 Hz file would need a 14-million-frame FFT to reach 48 kHz: refused, quickly.
     assert!(matches!(
         resample(&Audio::new(vec![h.clone()], 7), 48_000),
-        Err(PrepareError::ResampleRates { from_hz: 7, to_hz: 48_000, .. })
+        Err(ConditionError::ResampleRates { from_hz: 7, to_hz: 48_000, .. })
     ));
     assert_eq!(
         resample(&Audio::new(vec![h.clone()], 0), 48_000).unwrap_err(),
-        PrepareError::ResampleZeroRate { from_hz: 0, to_hz: 48_000 }
+        ConditionError::ResampleZeroRate { from_hz: 0, to_hz: 48_000 }
     );
-    assert!(matches!(resample(&Audio::new(vec![h.clone()], 44_100), 0), Err(PrepareError::ResampleZeroRate { .. })));
+    assert!(matches!(resample(&Audio::new(vec![h.clone()], 44_100), 0), Err(ConditionError::ResampleZeroRate { .. })));
     assert!(matches!(
         resample(&Audio::new(vec![h, vec![0.0; 3]], 44_100), 48_000),
-        Err(PrepareError::UnequalChannels { channel: 1, frames: 3, .. })
+        Err(ConditionError::UnequalChannels { channel: 1, frames: 3, .. })
     ));
 }
 
@@ -125,7 +126,7 @@ fn trim_tail_cuts_all_channels_after_the_last_loud_frame() {
     let mut silent = Audio::new(vec![vec![0.0; 10]], 48_000);
     assert_eq!(trim_tail(&mut silent, -60.0).unwrap(), 0);
     assert_eq!(silent.frames(), 10);
-    assert_eq!(trim_tail(&mut ir, 3.0).unwrap_err(), PrepareError::BadThreshold { threshold_db: 3.0 });
+    assert_eq!(trim_tail(&mut ir, 3.0).unwrap_err(), ConditionError::BadThreshold { threshold_db: 3.0 });
     assert!(trim_tail(&mut ir, f64::NAN).is_err());
 }
 
@@ -151,8 +152,8 @@ fn normalization_modes() {
     assert!((energy(&ir.channels[1]) - 0.27 / 0.9).abs() < 1e-6);
     // Silence cannot be normalized.
     let mut silent = Audio::new(vec![vec![0.0; 4]], 48_000);
-    assert_eq!(normalize(&mut silent, Normalize::Peak).unwrap_err(), PrepareError::Silent);
-    assert_eq!(normalize(&mut silent, Normalize::Energy).unwrap_err(), PrepareError::Silent);
+    assert_eq!(normalize(&mut silent, Normalize::Peak).unwrap_err(), ConditionError::Silent);
+    assert_eq!(normalize(&mut silent, Normalize::Energy).unwrap_err(), ConditionError::Silent);
 }
 
 #[test]
@@ -161,7 +162,7 @@ fn load_ir_by_default_uses_the_taps_exactly() {
     let path = tmp("true-stereo.wav");
     write_wav(&path, &taps, 48_000, SampleFormat::F32, Dither::OFF).unwrap();
     let p = load_ir(&path, &IrOptions::default()).unwrap();
-    assert_eq!(p.layout, Layout::TrueStereo);
+    assert_eq!(p.routing, Routing::TrueStereo);
     assert_eq!(p.ir.as_planar(), &taps[..]);
     assert_eq!((p.gain, p.trimmed_frames, p.source.channels), (1.0, 0, 4));
 }
@@ -176,10 +177,10 @@ fn load_ir_applies_every_step() {
         sample_rate_hz: Some(48_000),
         trim_tail_db: Some(-120.0),
         normalize: Normalize::Peak,
-        layout: Some(Layout::Stereo),
+        routing: Some(Routing::Stereo),
     };
     let p = load_ir(&path, &options).unwrap();
-    assert_eq!(p.layout, Layout::Stereo);
+    assert_eq!(p.routing, Routing::Stereo);
     // The 4410 zero frames (and the quietest end of the tail) are trimmed before resampling.
     assert!(p.trimmed_frames >= 4410, "{}", p.trimmed_frames);
     let kept = h.len() - p.trimmed_frames;
@@ -190,21 +191,21 @@ fn load_ir_applies_every_step() {
 }
 
 #[test]
-fn load_ir_layout_override_and_mismatch() {
+fn load_ir_routing_override_and_mismatch() {
     let mut noise = Noise::new(4);
     let six: Vec<Vec<f32>> = (0..6).map(|_| noise.vec(100)).collect();
     let path = tmp("six.wav");
     write_wav(&path, &six, 48_000, SampleFormat::F32, Dither::OFF).unwrap();
     let err = load_ir(&path, &IrOptions::default()).unwrap_err();
-    assert!(matches!(err, IoError::Prepare { source: PrepareError::LayoutNeeded { channels: 6 }, .. }), "{err:?}");
+    assert!(matches!(err, IoError::Condition { source: ConditionError::RoutingNeeded { channels: 6 }, .. }), "{err:?}");
     assert_names_file(&err, &path);
-    let options = IrOptions { layout: Some("matrix:2x3".parse().unwrap()), ..IrOptions::default() };
+    let options = IrOptions { routing: Some("matrix:2x3".parse().unwrap()), ..IrOptions::default() };
     let p = load_ir(&path, &options).unwrap();
-    assert_eq!(p.layout.routing(), partita_core::Routing::Matrix { inputs: 2, outputs: 3 });
-    let options = IrOptions { layout: Some(Layout::TrueStereo), ..IrOptions::default() };
+    assert_eq!(p.routing, Routing::Matrix { inputs: 2, outputs: 3 });
+    let options = IrOptions { routing: Some(Routing::TrueStereo), ..IrOptions::default() };
     let err = load_ir(&path, &options).unwrap_err();
     assert!(
-        matches!(err, IoError::Prepare { source: PrepareError::LayoutMismatch { channels: 6, .. }, .. }),
+        matches!(err, IoError::Condition { source: ConditionError::RoutingMismatch { channels: 6, .. }, .. }),
         "{err:?}"
     );
     assert_names_file(&err, &path);
@@ -214,7 +215,7 @@ fn load_ir_layout_override_and_mismatch() {
     write_wav(&path, &[vec![0.0f32; 10]], 48_000, SampleFormat::F32, Dither::OFF).unwrap();
     let options = IrOptions { normalize: Normalize::Energy, ..IrOptions::default() };
     let err = load_ir(&path, &options).unwrap_err();
-    assert!(matches!(err, IoError::Prepare { source: PrepareError::Silent, .. }), "{err:?}");
+    assert!(matches!(err, IoError::Condition { source: ConditionError::Silent, .. }), "{err:?}");
     assert_names_file(&err, &path);
 }
 

@@ -5,16 +5,16 @@
 //! T30 -5/-35 dB); IEC 61260-1:2014 base-10 octave bands; Sabine and Eyring (REFERENCES.md); Allen & Berkley
 //! (JASA 65, 1979) image positions.
 
-use partita_core::analysis::{
+use partita_core::synth::Noise;
+use partita_room::analysis::{
     centre_time_s, clarity_db, definition, edt, fit_decay, reverberation_time, schroeder_decay_db, t20, t30,
     AnalysisError, DecayRange, FilterPhase, OctaveFilter,
 };
-use partita_core::synth::phrase::{demo_phrase, DEMO_PHRASE_SECONDS};
-use partita_core::synth::room::{
+use partita_room::phrase::{demo_phrase, DEMO_PHRASE_SECONDS};
+use partita_room::room::{
     eyring_absorption, eyring_rt60_s, image_sources, render_room_ir, sabine_rt60_s, RoomSpec, DEMO_SEED, ROOM_BANDS,
     SABINE_CONSTANT_S_PER_M, SPEED_OF_SOUND_M_PER_S,
 };
-use partita_core::synth::Noise;
 
 const FS: f64 = 48_000.0;
 

@@ -1,6 +1,7 @@
-//! Impulse-response preparation on audio in memory: resampling to the engine's rate, tail trimming and
+//! Conditioning of impulse-response taps in memory: resampling to the engine's rate, tail trimming and
 //! normalization. Each step is optional; by default an IR is used exactly as read, so a render is the exact
-//! mathematical convolution with the file's taps.
+//! mathematical convolution with the file's taps. (Turning taps into spectra for an engine is the core's
+//! `prepare` step.) [`resample_signal`] resamples a signal rather than an IR, keeping its level.
 //!
 //! # Gain rule for resampling
 //! An IR is a filter, not a signal. Band-limited resampling keeps the *waveform* (the samples of the same
@@ -17,7 +18,7 @@ use rubato::audioadapter_buffers::direct::SequentialSliceOfVecs;
 use rubato::{Fft, FixedSync, Resampler, WindowFunction};
 
 use crate::audio::Audio;
-use crate::error::{ParseError, PrepareError};
+use crate::error::{ConditionError, ParseError};
 
 /// Input frames per FFT of the resampler (rounded up to a multiple of `from / gcd(from, to)`). The
 /// anti-aliasing filter is as long as this, so its passband reaches about 0.99 of the lower Nyquist frequency
@@ -44,10 +45,10 @@ pub fn resampled_frames(frames: u64, from_hz: u32, to_hz: u32) -> u64 {
     num.div_ceil(den).min(u128::from(u64::MAX)) as u64
 }
 
-fn check_equal(audio: &Audio) -> Result<(), PrepareError> {
+fn check_equal(audio: &Audio) -> Result<(), ConditionError> {
     let expected = audio.frames();
     match audio.channels.iter().enumerate().find(|(_, c)| c.len() != expected) {
-        Some((channel, c)) => Err(PrepareError::UnequalChannels { channel, frames: c.len(), expected }),
+        Some((channel, c)) => Err(ConditionError::UnequalChannels { channel, frames: c.len(), expected }),
         None => Ok(()),
     }
 }
@@ -61,13 +62,13 @@ fn check_equal(audio: &Audio) -> Result<(), PrepareError> {
 /// is filtered out. The same rate returns a copy.
 ///
 /// # Errors
-/// [`PrepareError::ResampleZeroRate`] for a 0 Hz rate, [`PrepareError::UnequalChannels`],
-/// [`PrepareError::ResampleRates`] for a rate pair with too small a common divisor (e.g. 7 Hz to 48 kHz),
-/// [`PrepareError::Resampler`] if rubato refuses.
-pub fn resample(audio: &Audio, to_hz: u32) -> Result<Audio, PrepareError> {
+/// [`ConditionError::ResampleZeroRate`] for a 0 Hz rate, [`ConditionError::UnequalChannels`],
+/// [`ConditionError::ResampleRates`] for a rate pair with too small a common divisor (e.g. 7 Hz to 48 kHz),
+/// [`ConditionError::Resampler`] if rubato refuses.
+pub fn resample(audio: &Audio, to_hz: u32) -> Result<Audio, ConditionError> {
     let from_hz = audio.sample_rate_hz;
     if from_hz == 0 || to_hz == 0 {
-        return Err(PrepareError::ResampleZeroRate { from_hz, to_hz });
+        return Err(ConditionError::ResampleZeroRate { from_hz, to_hz });
     }
     check_equal(audio)?;
     if from_hz == to_hz {
@@ -86,9 +87,9 @@ pub fn resample(audio: &Audio, to_hz: u32) -> Result<Audio, PrepareError> {
     let fft_chunks = RESAMPLE_CHUNK_FRAMES.div_ceil(min_in).max(1);
     let fft_frames = fft_chunks.saturating_mul(min_in.max(min_out));
     if fft_frames > MAX_RESAMPLE_FFT_FRAMES {
-        return Err(PrepareError::ResampleRates { from_hz, to_hz, fft_frames });
+        return Err(ConditionError::ResampleRates { from_hz, to_hz, fft_frames });
     }
-    let refused = |e: &dyn fmt::Display| PrepareError::Resampler { reason: e.to_string() };
+    let refused = |e: &dyn fmt::Display| ConditionError::Resampler { reason: e.to_string() };
     let input: Vec<Vec<f64>> = audio.channels.iter().map(|c| c.iter().map(|&v| f64::from(v)).collect()).collect();
     let mut resampler = Fft::<f64>::new_custom(
         from_hz as usize,
@@ -116,10 +117,10 @@ pub fn resample(audio: &Audio, to_hz: u32) -> Result<Audio, PrepareError> {
 /// frame is kept. An all-zero IR is left as it is. Returns the number of frames removed.
 ///
 /// # Errors
-/// [`PrepareError::BadThreshold`] when `threshold_db` is above 0 dB or NaN; [`PrepareError::UnequalChannels`].
-pub fn trim_tail(audio: &mut Audio, threshold_db: f64) -> Result<usize, PrepareError> {
+/// [`ConditionError::BadThreshold`] when `threshold_db` is above 0 dB or NaN; [`ConditionError::UnequalChannels`].
+pub fn trim_tail(audio: &mut Audio, threshold_db: f64) -> Result<usize, ConditionError> {
     if threshold_db.is_nan() || threshold_db > 0.0 {
-        return Err(PrepareError::BadThreshold { threshold_db });
+        return Err(ConditionError::BadThreshold { threshold_db });
     }
     check_equal(audio)?;
     let frames = audio.frames();
@@ -174,11 +175,26 @@ impl FromStr for Normalize {
     }
 }
 
+/// Resamples a *signal* to `to_hz`, keeping its waveform and level. Allocates. ([`resample`] is made for IRs:
+/// it scales taps by from / to to keep a filter's gain; a signal must not change level, so that scale is undone
+/// here.)
+///
+/// # Errors
+/// As [`resample`].
+pub fn resample_signal(audio: &Audio, to_hz: u32) -> Result<Audio, ConditionError> {
+    let mut out = resample(audio, to_hz)?;
+    let undo = f64::from(to_hz) / f64::from(audio.sample_rate_hz);
+    for v in out.channels.iter_mut().flatten() {
+        *v = (f64::from(*v) * undo) as f32;
+    }
+    Ok(out)
+}
+
 /// Scales the taps as `mode` says; returns the gain applied (1 for [`Normalize::None`]).
 ///
 /// # Errors
-/// [`PrepareError::Silent`] when peak or energy normalization meets an all-zero IR (or one with no taps).
-pub fn normalize(audio: &mut Audio, mode: Normalize) -> Result<f64, PrepareError> {
+/// [`ConditionError::Silent`] when peak or energy normalization meets an all-zero IR (or one with no taps).
+pub fn normalize(audio: &mut Audio, mode: Normalize) -> Result<f64, ConditionError> {
     let measure = match mode {
         Normalize::None => return Ok(1.0),
         Normalize::Peak => f64::from(audio.peak()),
@@ -190,7 +206,7 @@ pub fn normalize(audio: &mut Audio, mode: Normalize) -> Result<f64, PrepareError
             .sqrt(),
     };
     if measure == 0.0 {
-        return Err(PrepareError::Silent);
+        return Err(ConditionError::Silent);
     }
     let gain = 1.0 / measure;
     for v in audio.channels.iter_mut().flatten() {
@@ -218,5 +234,31 @@ mod tests {
         assert_eq!("Peak".parse::<Normalize>().unwrap(), Normalize::Peak);
         assert_eq!(Normalize::default(), Normalize::None);
         assert!("rms".parse::<Normalize>().unwrap_err().to_string().contains("none, peak or energy"));
+    }
+
+    #[test]
+    fn resample_signal_keeps_the_level_that_resample_scales() {
+        // A 1 kHz sine at 44.1 kHz, amplitude 0.5: resampled as a signal to 48 kHz its amplitude stays 0.5,
+        // while the IR rule scales the taps by 44.1 / 48.
+        let (from_hz, to_hz) = (44_100u32, 48_000u32);
+        let sine = |rate: u32, n: usize| {
+            (0..n).map(move |i| (0.5 * (2.0 * std::f64::consts::PI * 1000.0 * i as f64 / f64::from(rate)).sin()) as f32)
+        };
+        let audio = Audio::new(vec![sine(from_hz, 8820).collect()], from_hz);
+        let signal = resample_signal(&audio, to_hz).unwrap();
+        let ir = resample(&audio, to_hz).unwrap();
+        assert_eq!(signal.sample_rate_hz, to_hz);
+        assert_eq!(signal.frames() as u64, resampled_frames(8820, from_hz, to_hz));
+        // Away from the ends the waveform is the 1 kHz sine at the new rate, at the input's level.
+        let want: Vec<f32> = sine(to_hz, signal.frames()).collect();
+        let middle = 2000..signal.frames() - 2000;
+        let err = middle.clone().map(|n| (signal.channels[0][n] - want[n]).abs()).fold(0.0f32, f32::max);
+        assert!(err < 1e-3, "max error {err}");
+        let ratio = f64::from(to_hz) / f64::from(from_hz);
+        for n in middle {
+            let scaled = f64::from(ir.channels[0][n]) * ratio;
+            assert!((f64::from(signal.channels[0][n]) - scaled).abs() < 1e-6, "frame {n}");
+        }
+        assert!(matches!(resample_signal(&audio, 0), Err(ConditionError::ResampleZeroRate { .. })));
     }
 }

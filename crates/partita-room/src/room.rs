@@ -30,10 +30,10 @@
 use std::f64::consts::{LN_10, PI};
 use std::fmt;
 
+use partita_core::synth::Noise;
 use realfft::RealFftPlanner;
 use rustfft::num_complex::Complex64;
 
-use super::Noise;
 use crate::analysis::{OctaveBand, OCTAVE_RATIO};
 
 /// Speed of sound used throughout, m/s (dry air at about 20 degrees C; common practice).

@@ -17,7 +17,7 @@
 
 use std::f64::consts::PI;
 
-use super::Noise;
+use partita_core::synth::Noise;
 
 /// Length of [`demo_phrase`], seconds.
 pub const DEMO_PHRASE_SECONDS: f64 = 9.5;
