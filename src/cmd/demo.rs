@@ -9,11 +9,10 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use clap::Args;
-use partita_core::{CostModel, Engine, Planner, Routing, Schedule, Shape};
-use partita_io::{normalize, read_wav, write_wav_atomic, Dither, Normalize, SampleFormat};
+use partita_core::{offline, CostModel, Engine, Mix, Planner, Routing, Schedule, Shape};
+use partita_io::{normalize, read_wav, scale_to_peak, write_wav_atomic, Audio, Dither, Normalize, SampleFormat};
 
 use super::demo_data::{self, DemoData, DemoSpace, DEMO_FORMAT, DRY_FILE};
-use super::render::{convolve, dry_sources, mix_into, offline_plan_for, MixLevels};
 use super::{dbfs, levels_list, print_levels, CmdResult};
 use partita::measure;
 
@@ -172,18 +171,16 @@ pub fn run(args: DemoArgs) -> CmdResult {
         );
 
         // Offline render: the fastest plan, every core, timed end to end (engine builds included).
-        let plan = offline_plan_for(ir.frames(), shape, None)?;
+        let plan = offline::offline_plan(ir.frames(), shape)?;
+        let mix = Mix { wet: args.wet as f32, dry: args.dry as f32, ..Mix::default() };
         let t0 = Instant::now();
-        let mut y = convolve(&plan, &ir, routing, &dry.channels, 0, None).map_err(|e| format!("{ir_name}: {e}"))?;
+        let y = offline::render_with_mix(&plan, &ir, routing, &mix, &dry.channels, 0, None)
+            .map_err(|e| format!("{ir_name}: {e}"))?;
         let render_s = t0.elapsed().as_secs_f64();
-        let sources = dry_sources(map.inputs, map.outputs);
-        mix_into(&mut y, &dry.channels, sources.as_deref(), MixLevels { wet: args.wet, dry: args.dry, gain: 1.0 });
-        let peak = y.iter().flatten().fold(0.0f64, |m, v| m.max(f64::from(v.abs())));
-        if peak == 0.0 {
-            return Err(format!("{ir_name}: the mix is silent; nothing to scale to {DEMO_PEAK_DBFS} dBFS").into());
-        }
-        let scale = 10f64.powf(DEMO_PEAK_DBFS / 20.0) / peak;
-        mix_into(&mut y, &[], None, MixLevels { wet: 1.0, dry: 0.0, gain: scale });
+        let mut y = Audio { channels: y, sample_rate_hz: rate };
+        let scale = scale_to_peak(&mut y, DEMO_PEAK_DBFS)
+            .map_err(|_| format!("{ir_name}: the mix is silent; nothing to scale to {DEMO_PEAK_DBFS} dBFS"))?;
+        let y = y.channels;
         let out_path = out_dir.join(&ir_name);
         write_wav_atomic(&out_path, &y, rate, SampleFormat::F32, Dither::OFF)?;
         let out_s = y[0].len() as f64 / rate_f;

@@ -3,9 +3,9 @@
 //!
 //! The pipeline per input: read the header (all inputs and the IR are checked before any work starts), load
 //! the IR at the input's rate (resampled when the rates differ, with a note), choose the routing from the IR's
-//! channels (or --routing) and the input's ([`partita_core::Routing::choose`]), convolve ([`convolve`]), mix
-//! `gain x (wet x convolved + dry x input)` ([`mix_into`]), cut the tail if asked, refuse non-finite output,
-//! and write to a temporary file beside the output that is renamed over it only when complete
+//! channels (or --routing) and the input's ([`partita_core::Routing::choose`]), convolve and mix
+//! `gain x (wet x convolved + dry x input)` in one pass through the engine's own mixer
+//! ([`partita_core::offline::render_with_mix`]), cut the tail if asked, refuse non-finite output, and write to a temporary file beside the output that is renamed over it only when complete
 //! ([`partita_io::write_wav_atomic`]).
 
 use std::io::IsTerminal;
@@ -16,8 +16,8 @@ use std::time::Instant;
 
 use clap::Args;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use partita_core::offline::{self, RenderError, OFFLINE_MAX_LEVEL_FRAMES};
-use partita_core::{ImpulseResponse, Plan, PlanError, Routing, Shape};
+use partita_core::offline;
+use partita_core::{Mix, Plan, Routing, Shape};
 use partita_io::{
     load_ir, read_wav, read_wav_info, resample_signal, write_wav_atomic, Dither, IrOptions, LoadedIr, Normalize,
     SampleFormat, WavInfo,
@@ -79,79 +79,6 @@ pub struct RenderArgs {
     /// Threads to use, shared among the inputs [default: all cores].
     #[arg(long, value_name = "N")]
     threads: Option<usize>,
-}
-
-/// Levels of the final mix: `gain x (wet x convolved + dry x input)`, all linear.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct MixLevels {
-    /// Level of the convolved signal.
-    pub wet: f64,
-    /// Level of the input.
-    pub dry: f64,
-    /// Gain of the sum.
-    pub gain: f64,
-}
-
-/// How the dry input reaches the outputs: for each output, the input channel mixed into it. Equal channel
-/// counts map one to one; a mono input feeds every output. `None` for any other shape (a matrix of M
-/// inputs to N outputs, M > 1, M != N), where a dry mix is refused.
-pub fn dry_sources(inputs: usize, outputs: usize) -> Option<Vec<usize>> {
-    if inputs == outputs {
-        Some((0..outputs).collect())
-    } else if inputs == 1 {
-        Some(vec![0; outputs])
-    } else {
-        None
-    }
-}
-
-/// Mixes in place: each `wet[o][n]` becomes `gain x (wet x wet[o][n] + dry x input[sources[o]][n])`, the
-/// input counting as zero past its end. Computed in f64 and rounded once to f32, so with wet 1, dry 0 and
-/// gain 1 the convolution is kept bit for bit. A dry level of 0 ignores `sources`.
-pub fn mix_into(wet: &mut [Vec<f32>], input: &[Vec<f32>], sources: Option<&[usize]>, levels: MixLevels) {
-    for (o, y) in wet.iter_mut().enumerate() {
-        let dry = match sources {
-            Some(s) if levels.dry != 0.0 => Some(&input[s[o]][..]),
-            _ => None,
-        };
-        for (n, v) in y.iter_mut().enumerate() {
-            let d = dry.and_then(|x| x.get(n)).map_or(0.0, |&x| f64::from(x));
-            *v = (levels.gain * (levels.wet * f64::from(*v) + levels.dry * d)) as f32;
-        }
-    }
-}
-
-/// The plan for an offline render: partita-core's offline recommendation ([`offline::offline_plan`]), or
-/// with `block_frames` the same planner at that block. Allocates.
-///
-/// # Errors
-/// [`PlanError`] for a zero block or IR length.
-pub fn offline_plan_for(ir_frames: usize, shape: Shape, block_frames: Option<usize>) -> Result<Plan, PlanError> {
-    match block_frames {
-        None => offline::offline_plan(ir_frames, shape),
-        Some(b) => offline::offline_planner(ir_frames)
-            .block_frames(b)
-            .max_level_frames(OFFLINE_MAX_LEVEL_FRAMES.max(b))
-            .shape(shape)
-            .plan(ir_frames),
-    }
-}
-
-/// The convolution itself: [`offline::render`] (full length `frames + ir - 1`, latency removed, time
-/// segments on up to `threads` threads, 0 for all cores, `progress(done, total)` as it goes). Every render of
-/// the command goes through this one function.
-///
-/// # Errors
-/// [`RenderError`] when the plan, IR, routing and inputs do not fit together.
-pub fn convolve(
-    plan: &Plan,
-    ir: &ImpulseResponse,
-    routing: Routing,
-    inputs: &[Vec<f32>],
-    threads: usize,
-    progress: Option<&(dyn Fn(u64, u64) + Sync)>,
-) -> Result<Vec<Vec<f32>>, RenderError> {
-    offline::render(plan, ir, routing, inputs, threads, progress)
 }
 
 /// Whether two paths name one existing file (hard links and symbolic links included).
@@ -235,7 +162,6 @@ struct Job {
     ir: usize,
     routing: Routing,
     plan: Plan,
-    dry_sources: Option<Vec<usize>>,
     /// Work estimate for the progress bar: (frames + IR frames) x paths.
     weight: f64,
 }
@@ -253,7 +179,7 @@ struct Written {
 /// Settings shared by every job.
 #[derive(Debug, Clone, Copy)]
 struct Output {
-    levels: MixLevels,
+    mix: Mix,
     no_tail: bool,
     format: SampleFormat,
     dither: Dither,
@@ -275,12 +201,12 @@ fn render_job(
         audio = resample_signal(&audio, job.rate_hz).map_err(|e| format!("{name}: {e}"))?;
     }
     let frames = audio.frames();
-    let mut y = convolve(&job.plan, &ir.ir, job.routing, &audio.channels, threads, Some(progress))
-        .map_err(|e| format!("{name}: {e}"))?;
+    let mut y =
+        offline::render_with_mix(&job.plan, &ir.ir, job.routing, &out.mix, &audio.channels, threads, Some(progress))
+            .map_err(|e| format!("{name}: {e}"))?;
     if out.no_tail {
         y.iter_mut().for_each(|c| c.truncate(frames));
     }
-    mix_into(&mut y, &audio.channels, job.dry_sources.as_deref(), out.levels);
     if let Some((channel, frame)) = first_non_finite(&y) {
         return Err(format!(
             "{}: not written: the mix has a NaN or infinite sample (channel {channel}, frame {frame}); lower \
@@ -426,6 +352,8 @@ pub fn run(args: RenderArgs) -> CmdResult {
         }
     }
 
+    // One mix for every job, applied by the engine's own mixer (10 ms ramps never start: the engines begin at it).
+    let mix = Mix { wet: args.wet as f32, dry: args.dry as f32, output_gain_db: args.gain_db as f32, ..Mix::default() };
     let mut jobs = Vec::with_capacity(args.inputs.len());
     for ((input, info), (output, &rate)) in args.inputs.iter().zip(&infos).zip(outputs.iter().zip(&rates)) {
         let index = irs.iter().position(|p| p.ir.sample_rate_hz() == rate).unwrap_or(0);
@@ -434,8 +362,7 @@ pub fn run(args: RenderArgs) -> CmdResult {
         let routing = Routing::choose(args.routing, ir.ir.channels(), channels)
             .map_err(|e| format!("{}: the IR {ir_name}: {e}", input.display()))?;
         let map = routing.resolve(ir.ir.channels()).map_err(|e| format!("{ir_name}: {e}"))?;
-        let dry = dry_sources(map.inputs, map.outputs);
-        if dry.is_none() && args.dry != 0.0 {
+        if mix.check(map.inputs, map.outputs, 0).is_err() && args.dry != 0.0 {
             return Err(format!(
                 "{}: --dry needs the output channels to match the input's (or a mono input), but the {} IR \
                  {ir_name} maps {} inputs to {} outputs; use --dry 0",
@@ -446,8 +373,8 @@ pub fn run(args: RenderArgs) -> CmdResult {
             )
             .into());
         }
-        let plan =
-            offline_plan_for(ir.ir.frames(), Shape::of(&map), args.block).map_err(|e| format!("{ir_name}: {e}"))?;
+        let plan = offline::offline_plan_with_block(ir.ir.frames(), Shape::of(&map), args.block)
+            .map_err(|e| format!("{ir_name}: {e}"))?;
         let frames = partita_io::resampled_frames(info.frames, info.sample_rate_hz, rate) as f64;
         let weight = (frames + ir.ir.frames() as f64) * map.paths.len() as f64;
         jobs.push(Job {
@@ -457,7 +384,6 @@ pub fn run(args: RenderArgs) -> CmdResult {
             ir: index,
             routing,
             plan,
-            dry_sources: dry,
             weight,
         });
     }
@@ -466,7 +392,7 @@ pub fn run(args: RenderArgs) -> CmdResult {
     }
 
     let out = Output {
-        levels: MixLevels { wet: args.wet, dry: args.dry, gain: 10f64.powf(args.gain_db / 20.0) },
+        mix,
         no_tail: args.no_tail,
         format: args.format,
         dither: if args.no_dither { Dither::OFF } else { Dither::default() },

@@ -215,6 +215,23 @@ pub fn normalize(audio: &mut Audio, mode: Normalize) -> Result<f64, ConditionErr
     Ok(gain)
 }
 
+/// Scales every channel by one gain so that the largest |sample| becomes `peak_dbfs` (e.g. -1.0), computed in
+/// f64 and rounded once; returns the gain applied. For finished signals (a render's output), not for IRs.
+///
+/// # Errors
+/// [`ConditionError::Silent`] when every sample is zero (there is no peak to scale).
+pub fn scale_to_peak(audio: &mut Audio, peak_dbfs: f64) -> Result<f64, ConditionError> {
+    let peak = f64::from(audio.peak());
+    if peak == 0.0 {
+        return Err(ConditionError::Silent);
+    }
+    let gain = 10f64.powf(peak_dbfs / 20.0) / peak;
+    for v in audio.channels.iter_mut().flatten() {
+        *v = (f64::from(*v) * gain) as f32;
+    }
+    Ok(gain)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -227,6 +244,17 @@ mod tests {
         assert_eq!(resampled_frames(3, 96_000, 48_000), 2);
         assert_eq!(resampled_frames(0, 44_100, 48_000), 0);
         assert_eq!(resampled_frames(u64::MAX, 1, 2), u64::MAX);
+    }
+
+    #[test]
+    fn scale_to_peak_sets_the_largest_sample() {
+        let mut a = Audio { channels: vec![vec![0.5, -0.25], vec![0.1, 0.0]], sample_rate_hz: 48_000 };
+        let gain = scale_to_peak(&mut a, -6.0).unwrap();
+        let want = 10f64.powf(-6.0 / 20.0); // the peak, 0.5012 (published dB definition: 20 log10)
+        assert!((f64::from(a.channels[0][0]) - want).abs() < 1e-7 && (gain - 2.0 * want).abs() < 1e-12);
+        assert!((f64::from(a.channels[0][1]) + want / 2.0).abs() < 1e-7);
+        let mut silent = Audio { channels: vec![vec![0.0; 4]], sample_rate_hz: 48_000 };
+        assert_eq!(scale_to_peak(&mut silent, -1.0), Err(ConditionError::Silent));
     }
 
     #[test]

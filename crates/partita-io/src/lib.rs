@@ -57,7 +57,7 @@ mod read;
 mod write;
 
 pub use audio::Audio;
-pub use condition::{normalize, resample, resample_signal, resampled_frames, trim_tail, Normalize};
+pub use condition::{normalize, resample, resample_signal, resampled_frames, scale_to_peak, trim_tail, Normalize};
 pub use dither::Dither;
 pub use error::{ConditionError, IoError, ParseError};
 pub use info::{Encoding, WavInfo, WAVE_FORMAT_EXTENSIBLE, WAVE_FORMAT_IEEE_FLOAT, WAVE_FORMAT_PCM};
