@@ -8,7 +8,7 @@
 //!   default, index or name), a configuration (channels, rate, PCM format, a fixed period where the
 //!   host allows); [`LiveDevices::start`] builds the [`Bridge`] and starts both streams.
 //! - The per-callback work is plain struct methods ([`CaptureSide::capture`],
-//!   [`PlaybackSide::render`]) that never allocate, lock or wait, so tests drive them without a device.
+//!   [`PlaybackSide::play`]) that never allocate, lock or wait, so tests drive them without a device.
 //! - Any callback frame count works (split into chunks of the engine's `max_host_frames`); every PCM
 //!   format converts to and from f32 ([`convert`]); device channels map to engine channels
 //!   ([`ChannelMap`]); clock drift between separate devices is corrected by slipping or repeating a
