@@ -6,6 +6,8 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 mod cmd;
+#[cfg(feature = "live")]
+mod signals;
 
 /// Real-time partitioned FFT convolution of audio with measured impulse responses.
 #[derive(Debug, Parser)]

@@ -7,33 +7,14 @@
 //! process's CPU clock over the same run: an upper bound, since it also counts the runner's own pacing and
 //! bookkeeping, the workers' wake-ups and parking, and any other thread of the process. Callback time is
 //! one `process()` call, on the calling thread's CPU clock (judged against the deadline) with the
-//! wall-clock time beside it.
+//! wall-clock time beside it. The clocks are partita-core's ([`partita_core::thread_cpu_seconds`],
+//! [`partita_core::process_cpu_seconds`]).
 
 use std::time::{Duration, Instant};
 
 use partita_core::synth::Noise;
-use partita_core::Engine;
+use partita_core::{process_cpu_seconds, thread_cpu_seconds, Engine};
 use serde::Serialize;
-
-fn clock_seconds(clock: libc::clockid_t) -> f64 {
-    let mut ts = libc::timespec { tv_sec: 0, tv_nsec: 0 };
-    // SAFETY: `ts` is a valid, writable timespec; the clock ids used are supported on Linux.
-    let rc = unsafe { libc::clock_gettime(clock, &mut ts) };
-    if rc != 0 {
-        return 0.0;
-    }
-    ts.tv_sec as f64 + ts.tv_nsec as f64 * 1e-9
-}
-
-/// CPU seconds the calling thread has used.
-pub fn thread_cpu_seconds() -> f64 {
-    clock_seconds(libc::CLOCK_THREAD_CPUTIME_ID)
-}
-
-/// CPU seconds every thread of this process has used.
-pub fn process_cpu_seconds() -> f64 {
-    clock_seconds(libc::CLOCK_PROCESS_CPUTIME_ID)
-}
 
 /// What a measured run found.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]

@@ -234,3 +234,44 @@ fn sighup_swaps_to_the_alternative_ir() {
     assert!(log.contains("IR swaps     1 requested, 1 completed"), "{log}");
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+/// SIGINT (Ctrl-C) ends a running monitor cleanly: exit 0, the summary printed, well before `--seconds`.
+/// (That a second one forces the exit is checked without a server, in src/signals.rs.)
+#[test]
+fn sigint_stops_cleanly_with_a_summary() {
+    let _serial = serial();
+    let Some(server) = jack_or_skip("sigint_stops_cleanly_with_a_summary", 256) else { return };
+    let dir = scratch("sigint");
+    let ir = write_ir(&dir, 0.5);
+    let mut child = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--block", "256", "--seconds", "60", "--ir"])
+        .arg(&ir)
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut err = std::io::BufReader::new(child.stderr.take().unwrap());
+    let mut log = String::new();
+    let mut line = String::new();
+    while std::io::BufRead::read_line(&mut err, &mut line).unwrap_or(0) > 0 {
+        log.push_str(&line);
+        if line.starts_with("engine:") {
+            break;
+        }
+        line.clear();
+    }
+    std::thread::sleep(Duration::from_millis(1000));
+    let sent = Instant::now();
+    // SAFETY: kill(2) on our own child's pid with a valid signal number.
+    unsafe {
+        libc::kill(child.id() as libc::pid_t, libc::SIGINT);
+    }
+    let mut rest = String::new();
+    let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+    log.push_str(&rest);
+    let status = child.wait().unwrap();
+    eprintln!("stopped {:?} after SIGINT:\n{log}", sent.elapsed());
+    assert!(status.success(), "exit {status:?}: {log}");
+    assert!(sent.elapsed() < Duration::from_secs(10), "took {:?}", sent.elapsed());
+    assert!(log.contains("summary:") && log.contains("overruns"), "{log}");
+    let _ = std::fs::remove_dir_all(&dir);
+}

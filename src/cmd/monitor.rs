@@ -3,14 +3,14 @@
 //! Opens the host and devices (`partita-device`), loads the IR at the device rate, plans the engine as
 //! `partita plan` does (block size, or a latency budget), starts the streams, prints a caution, a
 //! one-line status a few times a second when stderr is a terminal, and a summary at the end (also as
-//! JSON with `--summary-json`). Ends after `--seconds`, on Ctrl-C (or SIGTERM), or with an error and a
-//! non-zero exit when the device or server goes away. SIGUSR1 toggles bypass, SIGUSR2 ends a safety
-//! mute, and SIGHUP swaps between `--ir` and `--alt-ir` with a crossfade (the engine's control API:
-//! the other IR is prepared off the audio thread and handed over by pointer).
+//! JSON with `--summary-json`). Ends after `--seconds`, on Ctrl-C (or SIGTERM; a second one ends the
+//! process at once), or with an error and a non-zero exit when the device or server goes away. SIGUSR1
+//! toggles bypass, SIGUSR2 ends a safety mute, and SIGHUP swaps between `--ir` and `--alt-ir` with a
+//! crossfade (the engine's control API: the other IR is prepared off the audio thread and handed over by
+//! pointer). The signals arrive as flags from [`crate::signals`].
 
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
-use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::{Duration, Instant};
 
 use clap::Args;
@@ -22,6 +22,7 @@ use partita_io::{load_ir, read_wav_info, IrOptions, Normalize};
 use serde_json::json;
 
 use super::{dbfs, CmdResult};
+use crate::signals::Signals;
 use partita::calibration::machine_costs;
 
 /// Arguments of `partita monitor`.
@@ -109,31 +110,6 @@ pub struct MonitorArgs {
     /// Also write the summary as JSON to this file.
     #[arg(long, value_name = "FILE")]
     summary_json: Option<PathBuf>,
-}
-
-static STOP: AtomicBool = AtomicBool::new(false);
-static TOGGLE_BYPASS: AtomicBool = AtomicBool::new(false);
-static UNMUTE: AtomicBool = AtomicBool::new(false);
-static SWAP: AtomicBool = AtomicBool::new(false);
-
-extern "C" fn on_signal(signal: libc::c_int) {
-    // Only stores to atomics: async-signal-safe.
-    match signal {
-        libc::SIGUSR1 => TOGGLE_BYPASS.store(true, Ordering::SeqCst),
-        libc::SIGUSR2 => UNMUTE.store(true, Ordering::SeqCst),
-        libc::SIGHUP => SWAP.store(true, Ordering::SeqCst),
-        _ => STOP.store(true, Ordering::SeqCst),
-    }
-}
-
-fn install_signal_handlers() {
-    let handler = on_signal as extern "C" fn(libc::c_int) as libc::sighandler_t;
-    for sig in [libc::SIGINT, libc::SIGTERM, libc::SIGUSR1, libc::SIGUSR2, libc::SIGHUP] {
-        // SAFETY: the handler only stores to static atomics, which is async-signal-safe.
-        unsafe {
-            libc::signal(sig, handler);
-        }
-    }
 }
 
 fn parse_channel_list(s: &str, what: &str) -> Result<Vec<usize>, String> {
@@ -266,7 +242,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         },
         ..StreamOptions::default()
     };
-    install_signal_handlers();
+    let signals = Signals::install().map_err(|e| format!("cannot install the signal handlers: {e}"))?;
     let mut live = devices.start(engine, &stream_options)?;
     let info = live.info().clone();
     let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
@@ -315,17 +291,17 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             fault = Some(f);
             break;
         }
-        if STOP.load(Ordering::SeqCst) || deadline.is_some_and(|d| started.elapsed() >= d) {
+        if signals.stop_requested() || deadline.is_some_and(|d| started.elapsed() >= d) {
             break;
         }
-        if TOGGLE_BYPASS.swap(false, Ordering::SeqCst) {
+        if signals.take_toggle_bypass() {
             match control.send(partita_core::Command::Bypass(!bypass)) {
                 Ok(()) => bypass = !bypass,
                 Err(_) if !control.has_dry() => eprintln!("\nSIGUSR1: this routing has no dry signal to bypass to"),
                 Err(_) => eprintln!("\nSIGUSR1: the engine's command queue is full; try again"),
             }
         }
-        if UNMUTE.swap(false, Ordering::SeqCst) {
+        if signals.take_unmute() {
             live.handle().unmute();
         }
         for event in control.poll() {
@@ -333,7 +309,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
                 spare = Some(ir); // freed (or kept) here, never on the audio thread
             }
         }
-        if SWAP.swap(false, Ordering::SeqCst) {
+        if signals.take_swap() {
             match spare.take() {
                 Some(next) => match control.swap(next, fade_frames) {
                     Ok(()) => swaps += 1,

@@ -37,11 +37,11 @@ mod level;
 pub mod naive;
 pub mod offline;
 mod plan;
+mod platform;
 mod prepared;
 mod ring;
 mod routing;
 pub mod synth;
-mod threads;
 
 pub use control::{Command, Control, Event, FadeState, Monitor, Refused, Status, SwapReport};
 pub use engine::{Engine, EngineOptions, Mix};
@@ -54,8 +54,8 @@ pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};
 pub use plan::cost::{CostModel, MachineCosts, Shape};
 pub use plan::planner::{PlanMode, Planner};
 pub use plan::{Level, Plan, Schedule};
+pub use platform::{process_cpu_seconds, thread_cpu_seconds};
 #[cfg(feature = "test-hooks")]
 pub use prepared::PrepareSplit;
 pub use prepared::PreparedIr;
 pub use routing::{Path, RouteMap, Routing};
-pub use threads::thread_cpu_seconds;

@@ -457,7 +457,8 @@ impl Engine {
     }
 
     /// For each worker thread, the real-time priority granted (`Ok`), the OS error when refused
-    /// (`Err`), or `None` when none was asked for. Off the audio thread (allocates the list).
+    /// (`Err`; `i32::MAX` where this build cannot set real-time priorities at all), or `None` when none
+    /// was asked for. Off the audio thread (allocates the list).
     pub fn worker_priorities(&self) -> Vec<Option<Result<i32, i32>>> {
         self.levels.iter().filter_map(LevelSlot::worker_priority).collect()
     }

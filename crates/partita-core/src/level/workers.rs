@@ -468,7 +468,7 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
     let _alive = Alive;
     let _flush = DenormalGuard::new();
     if let Some(p) = setup.priority {
-        let granted = crate::threads::try_realtime_priority(p);
+        let granted = crate::platform::try_realtime_priority(p);
         shared.priority.store(
             match granted {
                 Ok(p) => i64::from(p),
@@ -480,7 +480,7 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
     let n = shared.n;
     // Touch the parking machinery and the CPU clock once before reporting ready.
     std::thread::park_timeout(Duration::ZERO);
-    let _ = crate::threads::thread_cpu_seconds();
+    let _ = crate::platform::thread_cpu_seconds();
     shared.ready.store(true, Ordering::Release);
     let mut epoch = 0u64;
     let mut taken = 0u64;
@@ -492,7 +492,7 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
             std::thread::park();
             continue;
         }
-        let c0 = crate::threads::thread_cpu_seconds();
+        let c0 = crate::platform::thread_cpu_seconds();
         let job = taken;
         let slot = (job % SLOTS as u64) as usize;
         let job_epoch = shared.slot_epoch[slot].load(Ordering::Relaxed);
@@ -539,7 +539,7 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
         if extra > 0 {
             std::thread::sleep(Duration::from_micros(extra));
         }
-        let c1 = crate::threads::thread_cpu_seconds();
+        let c1 = crate::platform::thread_cpu_seconds();
         shared.cpu_nanos.fetch_add(((c1 - c0).max(0.0) * 1e9) as u64, Ordering::Relaxed);
         taken += 1;
         shared.completed.store(taken, Ordering::Release);
