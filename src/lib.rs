@@ -7,4 +7,5 @@ pub use partita_io as io;
 pub use partita_room as room;
 
 pub mod calibration;
+pub mod demo_files;
 pub mod measure;

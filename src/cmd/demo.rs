@@ -12,8 +12,8 @@ use clap::Args;
 use partita_core::{offline, CostModel, Engine, Mix, Planner, Routing, Schedule, Shape};
 use partita_io::{normalize, read_wav, scale_to_peak, write_wav_atomic, Audio, Dither, Normalize, SampleFormat};
 
-use super::demo_data::{self, DemoData, DemoSpace, DEMO_FORMAT, DRY_FILE};
 use super::{dbfs, levels_list, print_levels, CmdResult};
+use partita::demo_files::{self, DemoData, DemoSpace, DEMO_FORMAT, DRY_FILE};
 use partita::measure;
 
 /// Default wet level of the demo mix (linear, on an energy-normalized IR).
@@ -63,18 +63,18 @@ fn default_data_dir() -> PathBuf {
 fn load(dir: &Path) -> Result<(DemoData, String), Box<dyn std::error::Error>> {
     let specs = partita_room::room::RoomSpec::presets();
     let mut names = vec![DRY_FILE.to_string()];
-    names.extend(specs.iter().map(demo_data::file_name));
+    names.extend(specs.iter().map(demo_files::file_name));
     if names.iter().all(|n| dir.join(n).is_file()) {
         let dry = read_wav(&dir.join(DRY_FILE))?;
         let mut spaces = Vec::new();
         for spec in specs {
-            let ir = read_wav(&dir.join(demo_data::file_name(&spec)))?;
+            let ir = read_wav(&dir.join(demo_files::file_name(&spec)))?;
             spaces.push(DemoSpace { spec, ir });
         }
         Ok((DemoData { dry, spaces }, format!("read from {}", dir.display())))
     } else {
         let start = Instant::now();
-        let data = demo_data::generate();
+        let data = demo_files::generate();
         let why = format!(
             "generated in memory in {:.2} s ({} has no {})",
             start.elapsed().as_secs_f64(),

@@ -19,7 +19,7 @@ use crate::ir::ImpulseResponse;
 use crate::kernel::Kernel;
 use crate::level::fdl::{LevelIo, LevelRunner};
 use crate::level::sliced::SlicedLevel;
-use crate::level::workers::{Lateness, WorkerLevel, WorkerSetup};
+use crate::level::workers::{WorkerLevel, WorkerSetup};
 use crate::level::{LevelSlot, WorkerCounts};
 use crate::plan::{Plan, Schedule};
 use crate::prepared::{LevelSpec, SpectraRecipe};
@@ -27,51 +27,17 @@ use crate::ring::TimeRing;
 use crate::routing::{RouteMap, Routing};
 
 pub(crate) mod mix;
+mod options;
 pub(crate) mod reset;
 pub(crate) mod slots;
 pub(crate) mod swap;
 
 pub use mix::Mix;
 use mix::{OutputStage, WetSources};
+pub use options::EngineOptions;
 use reset::{ResetPhase, SweepItems, SweepStep, SWEEP_SAMPLES};
 use slots::SlotLayout;
 use swap::IrSlots;
-
-/// Build-time options of an [`Engine`].
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct EngineOptions {
-    /// The largest frame count a host call may carry.
-    pub max_host_frames: usize,
-    /// Multiply-accumulate kernel; [`Kernel::detect`] by default.
-    pub kernel: Kernel,
-    /// Ask for rate-monotonic real-time priorities (SCHED_FIFO, smaller levels higher) for worker
-    /// threads. Off by default: a spinning real-time thread can starve a small machine. When refused
-    /// (no privilege), the workers run at normal priority; [`Engine::worker_priorities`] says what was
-    /// granted.
-    pub realtime_workers: bool,
-    /// What to do when a worker result is late; [`Lateness::SpinThenDrop`] by default (real-time).
-    pub lateness: Lateness,
-    /// The longest pre-delay [`Command::PreDelayFrames`] may ask for; 0 (none) by default. Costs
-    /// 4 bytes per frame and output.
-    pub max_predelay_frames: usize,
-    /// The mix the stream starts with, without a ramp (wet 1, dry 0, 0 dB, no pre-delay, no bypass by
-    /// default). Its pre-delay must be within `max_predelay_frames`.
-    pub mix: Mix,
-}
-
-impl EngineOptions {
-    /// Defaults for a host calling with at most `max_host_frames` frames.
-    pub fn new(max_host_frames: usize) -> Self {
-        Self {
-            max_host_frames,
-            kernel: Kernel::detect(),
-            realtime_workers: false,
-            lateness: Lateness::default(),
-            max_predelay_frames: 0,
-            mix: Mix::default(),
-        }
-    }
-}
 
 /// A partitioned convolution engine for one stream.
 ///

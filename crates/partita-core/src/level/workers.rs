@@ -63,10 +63,10 @@ pub fn live_worker_threads() -> usize {
     LIVE_WORKERS.load(Ordering::SeqCst)
 }
 
-/// A buffer one side writes and the other reads, ordered by the atomics of [`Shared`].
+/// A buffer one side writes and the other reads, ordered by the atomics of [`JobCells`].
 struct Slot(UnsafeCell<Box<[f32]>>);
 
-struct Shared {
+struct JobCells {
     n: usize,
     outputs: usize,
     input_slots: Box<[Slot]>,
@@ -92,11 +92,11 @@ struct Shared {
 
 // SAFETY: the slot buffers are only accessed under the release/acquire protocol described in the
 // module docs, which gives each buffer exactly one accessor at a time; everything else is atomic.
-unsafe impl Sync for Shared {}
+unsafe impl Sync for JobCells {}
 
 /// Audio-thread side of a worker level.
 pub(crate) struct WorkerLevel {
-    shared: Arc<Shared>,
+    shared: Arc<JobCells>,
     thread: Option<JoinHandle<()>>,
     waker: Thread,
     pub(crate) period_blocks: u64,
@@ -170,7 +170,7 @@ impl WorkerLevel {
         let inputs = runner.inputs().to_vec();
         let outputs: Vec<usize> = (0..runner.output_count()).map(|w| runner.output_index(w)).collect();
         let slot = |len: usize| Slot(UnsafeCell::new(crate::ring::prefaulted::<f32>(len).into_boxed_slice()));
-        let shared = Arc::new(Shared {
+        let shared = Arc::new(JobCells {
             n,
             outputs: outputs.len(),
             input_slots: (0..SLOTS).map(|_| slot(inputs.len() * n)).collect(),
@@ -457,7 +457,7 @@ fn transfer_chunk(n: usize, b: usize) -> usize {
     (1..=most).rev().find(|k| period.is_multiple_of(*k)).unwrap_or(1) * b
 }
 
-fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<Shared>, setup: WorkerSetup) {
+fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<JobCells>, setup: WorkerSetup) {
     LIVE_WORKERS.fetch_add(1, Ordering::SeqCst);
     struct Alive;
     impl Drop for Alive {

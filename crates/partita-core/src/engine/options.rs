@@ -1,0 +1,41 @@
+//! Build-time options of an engine: plain data, chosen before anything is allocated.
+
+use crate::engine::Mix;
+use crate::kernel::Kernel;
+use crate::level::workers::Lateness;
+
+/// Build-time options of an [`Engine`](crate::Engine).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct EngineOptions {
+    /// The largest frame count a host call may carry.
+    pub max_host_frames: usize,
+    /// Multiply-accumulate kernel; [`Kernel::detect`] by default.
+    pub kernel: Kernel,
+    /// Ask for rate-monotonic real-time priorities (SCHED_FIFO, smaller levels higher) for worker
+    /// threads. Off by default: a spinning real-time thread can starve a small machine. When refused
+    /// (no privilege), the workers run at normal priority; [`Engine::worker_priorities`](crate::Engine::worker_priorities) says what was
+    /// granted.
+    pub realtime_workers: bool,
+    /// What to do when a worker result is late; [`Lateness::SpinThenDrop`] by default (real-time).
+    pub lateness: Lateness,
+    /// The longest pre-delay [`Command::PreDelayFrames`](crate::Command::PreDelayFrames) may ask for; 0 (none) by default. Costs
+    /// 4 bytes per frame and output.
+    pub max_predelay_frames: usize,
+    /// The mix the stream starts with, without a ramp (wet 1, dry 0, 0 dB, no pre-delay, no bypass by
+    /// default). Its pre-delay must be within `max_predelay_frames`.
+    pub mix: Mix,
+}
+
+impl EngineOptions {
+    /// Defaults for a host calling with at most `max_host_frames` frames.
+    pub fn new(max_host_frames: usize) -> Self {
+        Self {
+            max_host_frames,
+            kernel: Kernel::detect(),
+            realtime_workers: false,
+            lateness: Lateness::default(),
+            max_predelay_frames: 0,
+            mix: Mix::default(),
+        }
+    }
+}
