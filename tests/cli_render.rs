@@ -520,3 +520,43 @@ fn every_bad_input_gets_one_line_naming_the_file() {
     // Nothing but the files the test made: no temporary files from any failure.
     assert!(listing(&dir).iter().all(|n| !n.contains("partita-tmp")), "{:?}", listing(&dir));
 }
+
+/// `render --wet/--dry/--gain-db` equals the live engine's own mix of the same parameters, streamed in host
+/// calls with the latency removed, within the project's error bound (max <= 2e-6 of the reference peak,
+/// relative RMS <= 1e-6; docs/DESIGN.md section 4): the command and the engine share one mixer. Stereo
+/// input through a stereo IR, so the dry signal maps one to one.
+#[test]
+fn render_mix_equals_the_engines_streamed_mix() {
+    use partita_core::{Engine, EngineOptions, ImpulseResponse, Mix, Planner, Routing};
+    use partita_testkit::ErrorBound;
+    let dir = scratch("streamed-mix");
+    let x: Vec<Vec<f32>> = (0..2).map(|c| noise(20_000, 30 + c, 0.4)).collect();
+    let h: Vec<Vec<f32>> = (0..2).map(|c| partita_core::synth::decaying_noise(3000, 900.0, 40 + c)).collect();
+    let (input, ir, out) = (dir.join("in.wav"), dir.join("ir.wav"), dir.join("out.wav"));
+    write_f32(&input, &x, 48_000);
+    write_f32(&ir, &h, 48_000);
+    let args = [s(&input), "--ir", s(&ir), "-o", s(&out), "--wet", "0.3", "--dry", "0.7", "--gain-db", "-2"];
+    ok(&render(&args));
+    let got = read_wav(&out).unwrap();
+    assert_eq!((got.channel_count(), got.frames()), (2, 20_000 + 3000 - 1));
+
+    let mix = Mix { wet: 0.3, dry: 0.7, output_gain_db: -2.0, ..Mix::default() };
+    let taps = ImpulseResponse::new(h, 48_000).unwrap();
+    let plan = Planner::new().block_frames(64).plan(taps.frames()).unwrap();
+    let options = EngineOptions { mix, ..EngineOptions::new(256) };
+    let mut engine = Engine::with_options(&plan, &taps, Routing::Stereo, options).unwrap();
+    let lat = engine.latency_frames();
+    let total = got.frames() + lat;
+    let xs: Vec<Vec<f32>> = x.iter().map(|c| (0..total).map(|n| c.get(n).copied().unwrap_or(0.0)).collect()).collect();
+    let mut ys = vec![vec![0.0f32; total]; 2];
+    for at in (0..total).step_by(256) {
+        let end = (at + 256).min(total);
+        let ins: Vec<&[f32]> = xs.iter().map(|c| &c[at..end]).collect();
+        let mut outs: Vec<&mut [f32]> = ys.iter_mut().map(|c| &mut c[at..end]).collect();
+        engine.process(&ins, &mut outs).unwrap();
+    }
+    for (c, y) in ys.iter().enumerate() {
+        let streamed: Vec<f64> = y[lat..].iter().map(|&v| f64::from(v)).collect();
+        ErrorBound::measure(&got.channels[c], &streamed).assert_design_bound(&format!("channel {c}"));
+    }
+}
