@@ -207,3 +207,18 @@ fn plan_reads_the_ir_file_header() {
     let err = String::from_utf8_lossy(&wrong_routing.stderr);
     assert!(!wrong_routing.status.success() && err.contains(s(&barn)), "{err}");
 }
+
+/// `demo --routing`: a routing the rooms' channels do not fit is one clear error naming the routing, and
+/// nothing is rendered; the routing the channels imply works when asked for by name (any case).
+#[test]
+fn demo_takes_a_routing_and_refuses_one_that_does_not_fit() {
+    let out = scratch("demo-routing");
+    let run = partita(&["demo", "--out-dir", s(&out), "--routing", "true-stereo"]);
+    let err = String::from_utf8_lossy(&run.stderr);
+    assert_eq!(run.status.code(), Some(1), "{err}");
+    assert!(err.starts_with("partita: error: ") && err.contains("true-stereo"), "{err}");
+    assert!(!out.join(FILES[1]).exists(), "nothing rendered");
+    let run = partita(&["demo", "--out-dir", s(&out), "--routing", "Mono-To-Stereo"]);
+    assert!(run.status.success(), "{}", String::from_utf8_lossy(&run.stderr));
+    assert_eq!(read_wav(&out.join(FILES[1])).unwrap().channel_count(), 2);
+}

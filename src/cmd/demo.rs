@@ -47,6 +47,10 @@ pub struct DemoArgs {
     /// threads).
     #[arg(long, default_value = "sliced")]
     schedule: Schedule,
+    /// Routing of the rooms instead of the one their channels imply (the dry phrase is mono and the rooms are
+    /// stereo, so mono-to-stereo): mono, mono-to-stereo, stereo, true-stereo or matrix:MxN.
+    #[arg(long = "routing", alias = "layout", value_name = "ROUTING")]
+    routing: Option<Routing>,
     /// Where the demo files are read from [default: demo-data/ in the source tree]. When the folder or one of
     /// its files is missing, all of them are generated in memory instead.
     #[arg(long, value_name = "DIR")]
@@ -152,7 +156,7 @@ pub fn run(args: DemoArgs) -> CmdResult {
         }
         normalize(&mut ir_audio, Normalize::Energy).map_err(|e| format!("{}: {e}", ir_path.display()))?;
         let ir = partita_io::to_impulse_response(ir_audio, &ir_path)?;
-        let routing = Routing::choose(None, ir.channels(), dry.channel_count())
+        let routing = Routing::choose(args.routing, ir.channels(), dry.channel_count())
             .map_err(|e| format!("{}: with the dry phrase: {e}", ir_path.display()))?;
         let map = routing.resolve(ir.channels()).map_err(|e| format!("{}: {e}", ir_path.display()))?;
         let shape = Shape::of(&map);

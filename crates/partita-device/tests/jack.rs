@@ -191,11 +191,25 @@ fn end_to_end_at_period_64() {
 }
 
 /// The server's period changes mid-stream (256 -> 1024 -> 512): after each change the output is again the
-/// exact convolution, at the new latency.
+/// exact convolution, at the new latency. As in `judged_end_to_end`: a run whose mismatches come with
+/// counted glitches (a non-real-time server on a busy machine misses cycles; an xrun can re-prime the ring
+/// and move the lag for the rest of a window) is run once more, and that run is judged by the same rules.
 #[test]
 fn server_period_change_keeps_the_output_correct() {
     let _serial = serial();
-    let Some(server) = jack_or_skip("server_period_change_keeps_the_output_correct", 256) else { return };
+    if let Err(first) = period_change_run() {
+        eprintln!("WARNING: {first}; running again");
+        if let Err(again) = period_change_run() {
+            panic!("{again}");
+        }
+    }
+}
+
+/// One run of the period-change test: `Ok` when every window is exact, or mostly exact (3 in 5) with glitches
+/// counted; `Err` (with the reason) when a window falls short with glitches counted; panics on a mismatch
+/// without any counted glitch, which no re-run may excuse.
+fn period_change_run() -> Result<(), String> {
+    let Some(server) = jack_or_skip("server_period_change_keeps_the_output_correct", 256) else { return Ok(()) };
     let taps = stereo_ir(1000, 0.1);
     let live = start_live(engine(&taps, Routing::Stereo, 64), EngineSide::Capture);
     let start = RATE as usize / 2;
@@ -240,10 +254,14 @@ fn server_period_change_keeps_the_output_correct() {
                 // Only a glitch the run counted (server xruns, our overruns) excuses a mismatch.
                 assert!(glitches > 0, "channel {c}, window {k}: {good} of {total} exact without a counted glitch");
                 eprintln!("WARNING: {glitches} glitches counted");
-                assert!(5 * good >= 3 * total, "channel {c}, window {k}: only {good} of {total} exact");
+                if 5 * good < 3 * total {
+                    return Err(format!("channel {c}, window {k}: only {good} of {total} exact"));
+                }
             }
         }
     }
+    drop(server);
+    Ok(())
 }
 
 /// The server dies mid-run: the stream reports it within 2 s and stops without hanging.
