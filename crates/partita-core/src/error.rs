@@ -424,3 +424,47 @@ impl fmt::Display for MixError {
 }
 
 impl std::error::Error for MixError {}
+
+/// Why [`Control::send`](crate::Control::send) did not queue a command.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub enum SendError {
+    /// The command queue is full (is the engine's audio thread running?); the command comes back.
+    QueueFull(crate::Command),
+    /// The command does not fit the engine; nothing was queued.
+    Invalid {
+        /// The command.
+        command: crate::Command,
+        /// What is wrong with it.
+        reason: MixError,
+    },
+}
+
+impl SendError {
+    /// The command that was not queued.
+    pub fn command(&self) -> crate::Command {
+        match self {
+            Self::QueueFull(c) | Self::Invalid { command: c, .. } => *c,
+        }
+    }
+}
+
+impl fmt::Display for SendError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::QueueFull(_) => {
+                write!(f, "the engine's command queue is full (is its audio thread running?); try again later")
+            }
+            Self::Invalid { command, reason } => write!(f, "{command:?} refused: {reason}"),
+        }
+    }
+}
+
+impl std::error::Error for SendError {
+    fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
+        match self {
+            Self::Invalid { reason, .. } => Some(reason),
+            Self::QueueFull(_) => None,
+        }
+    }
+}

@@ -1,7 +1,7 @@
 //! The direct-form head: the first taps of the IR computed sample by sample, so the output needs no
 //! block latency (Gardner 1995, J. AES 43(3): "zero-delay" convolution).
 
-use crate::ring::TimeRing;
+use crate::ring::{prefaulted, TimeRing};
 
 /// Direct-form FIR over the first `taps` of each path's IR. The taps themselves belong to the IR (see
 /// [`head_taps`]), so a swap can run two sets side by side.
@@ -29,7 +29,7 @@ pub(crate) fn head_taps(taps: usize, channels: impl Iterator<Item = Vec<f32>>) -
 impl Head {
     /// `paths` gives (input, output) per path. Allocates.
     pub(crate) fn new(taps: usize, max_chunk: usize, paths: Vec<(usize, usize)>) -> Self {
-        Self { taps, paths, window: vec![0.0; max_chunk + taps], sum: vec![0.0; max_chunk] }
+        Self { taps, paths, window: prefaulted(max_chunk + taps), sum: prefaulted(max_chunk) }
     }
 
     /// Adds the head's output for output frames `[frame, frame + len)` into `outputs[o][..len]`, with

@@ -6,14 +6,35 @@
 //! tests compare every available kernel with it.
 
 /// A multiply-accumulate implementation.
+///
+/// The SIMD variants carry a [`CpuToken`] that only [`Kernel::detect`] (and so [`Kernel::available`]) can
+/// make, after checking the CPU: safe code cannot name a kernel its CPU does not run, which is what makes
+/// [`mac`](Kernel::mac) safe to call.
+///
+/// ```compile_fail
+/// // The token's field is private: a kernel cannot be made up.
+/// let k = partita_core::Kernel::Avx2Fma(partita_core::kernel::CpuToken(()));
+/// ```
+///
+/// ```
+/// // What the compile_fail example above leans on exists; only its construction is refused.
+/// # #[cfg(target_arch = "x86_64")]
+/// if let partita_core::Kernel::Avx2Fma(token) = partita_core::Kernel::detect() {
+///     let _copy: partita_core::kernel::CpuToken = token;
+/// }
+/// ```
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Kernel {
     /// Portable code (the compiler auto-vectorizes it for the baseline target).
     Scalar,
     /// AVX2 + FMA, 8 bins per instruction (x86-64 only, chosen when the CPU has both).
     #[cfg(target_arch = "x86_64")]
-    Avx2Fma,
+    Avx2Fma(CpuToken),
 }
+
+/// Proof that the CPU was checked for a SIMD kernel's features. Only [`Kernel::detect`] makes one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct CpuToken(());
 
 impl Kernel {
     /// The fastest kernel this CPU runs.
@@ -21,7 +42,7 @@ impl Kernel {
         #[cfg(target_arch = "x86_64")]
         {
             if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
-                return Self::Avx2Fma;
+                return Self::Avx2Fma(CpuToken(()));
             }
         }
         Self::Scalar
@@ -42,7 +63,7 @@ impl Kernel {
         match self {
             Self::Scalar => "scalar",
             #[cfg(target_arch = "x86_64")]
-            Self::Avx2Fma => "avx2-fma",
+            Self::Avx2Fma(_) => "avx2-fma",
         }
     }
 
@@ -57,9 +78,9 @@ impl Kernel {
         match self {
             Self::Scalar => mac_scalar(acc_re, acc_im, x_re, x_im, h_re, h_im),
             #[cfg(target_arch = "x86_64")]
-            // SAFETY: `Avx2Fma` is only produced by `detect()` after checking both CPU features, and the
-            // lengths were checked equal above.
-            Self::Avx2Fma => unsafe { mac_avx2_fma(acc_re, acc_im, x_re, x_im, h_re, h_im) },
+            // SAFETY: `Avx2Fma` carries a `CpuToken`, which only `detect()` makes after checking both CPU
+            // features (its field is private to this module), and the lengths were checked equal above.
+            Self::Avx2Fma(_) => unsafe { mac_avx2_fma(acc_re, acc_im, x_re, x_im, h_re, h_im) },
         }
     }
 }

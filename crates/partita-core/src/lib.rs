@@ -31,6 +31,8 @@ pub mod denormal;
 mod engine;
 mod error;
 mod head;
+#[cfg(feature = "test-hooks")]
+pub mod hooks;
 mod ir;
 pub mod kernel;
 mod level;
@@ -46,7 +48,7 @@ pub mod synth;
 pub use control::{Command, Control, Event, FadeState, Monitor, Refused, Status, SwapReport};
 pub use engine::{Engine, EngineOptions, Mix};
 pub use error::{
-    ControlError, EngineError, IrError, MixError, PlanError, ProcessError, RoutingError, RoutingParseError,
+    ControlError, EngineError, IrError, MixError, PlanError, ProcessError, RoutingError, RoutingParseError, SendError,
 };
 pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
@@ -58,4 +60,5 @@ pub use platform::{process_cpu_seconds, thread_cpu_seconds};
 #[cfg(feature = "test-hooks")]
 pub use prepared::PrepareSplit;
 pub use prepared::PreparedIr;
+pub use ring::{prefault_stack, INPUT_LIMIT};
 pub use routing::{Path, RouteMap, Routing};

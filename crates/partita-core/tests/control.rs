@@ -376,3 +376,83 @@ fn refusals_name_the_fault() {
     }
     assert_eq!(sent, 64);
 }
+
+/// A pre-delay change that arrives while a pre-delay crossfade runs does not jump to the running one's
+/// target: it starts at the first block boundary after that crossfade ends, from where it ended, and its
+/// `Applied` event carries that frame. Checked against the oracle: the documented ramps, one after the other.
+#[test]
+fn a_predelay_change_during_a_running_crossfade_starts_where_it_ends() {
+    let plan = plans(500)[1].clone();
+    let b = plan.block_frames as u64;
+    let ir = random_ir(1, 500, 54);
+    let mut e = engine(&plan, &ir, Routing::Mono, 40);
+    let mut control = e.control().unwrap();
+    let input = random_input(1, 8000, 55);
+    let total = 8000 + 500 + 300 + e.latency_frames();
+    let got = stream_with(&mut e, &input, total, 56, |k, _| match k {
+        30 => control.send(Command::PreDelayFrames(250)).unwrap(),
+        32 => control.send(Command::PreDelayFrames(100)).unwrap(),
+        _ => {}
+    });
+    let applied = applied_frames(control.poll());
+    assert_eq!(
+        applied.iter().map(|a| a.0).collect::<Vec<_>>(),
+        [Command::PreDelayFrames(250), Command::PreDelayFrames(100)]
+    );
+    let (f1, f2) = (applied[0].1, applied[1].1);
+    assert!(f2 >= f1 + RAMP as u64 && f2 < f1 + RAMP as u64 + b, "second fade at {f2}, first at {f1}");
+    assert_eq!(f2 % b, 0, "the deferred crossfade starts at a block boundary");
+    let wet = oracle(&input, &ir, Routing::Mono, e.latency_frames(), total);
+    let late = |n: usize, d: usize| if n >= d { wet[0][n - d] } else { 0.0 };
+    let want: Vec<f64> = (0..total)
+        .map(|n| {
+            if (n as u64) < f2 {
+                let x = ramp(0.0, 1.0, f1, n);
+                (1.0 - x) * wet[0][n] + x * late(n, 250)
+            } else {
+                let x = ramp(0.0, 1.0, f2, n);
+                (1.0 - x) * late(n, 250) + x * late(n, 100)
+            }
+        })
+        .collect();
+    ErrorBound::measure(&got[0], &want).assert_design_bound("pre-delay change during a crossfade");
+}
+
+/// `Control::send` refuses what does not fit the engine with the reason, and queues nothing: non-finite
+/// gains, an output gain whose linear value overflows, a pre-delay beyond the bound, and a dry signal or
+/// bypass on a shape without a dry path (2 inputs to 3 outputs). What fits is queued and applied.
+#[test]
+fn send_refuses_what_does_not_fit_and_queues_nothing() {
+    use partita_core::{MixError, SendError};
+    let plan = Plan::uniform(16, 64).unwrap();
+    let mut e = engine(&plan, &random_ir(1, 64, 57), Routing::Mono, 64);
+    let mut control = e.control().unwrap();
+    let invalid = |r: Result<(), SendError>| match r {
+        Err(SendError::Invalid { reason, .. }) => reason,
+        other => panic!("expected a refusal, got {other:?}"),
+    };
+    assert_eq!(invalid(control.send(Command::WetGain(f32::NAN))), MixError::NotFinite { parameter: "wet" });
+    assert_eq!(invalid(control.send(Command::DryGain(f32::INFINITY))), MixError::NotFinite { parameter: "dry" });
+    assert_eq!(invalid(control.send(Command::OutputGainDb(1000.0))), MixError::NotFinite { parameter: "output gain" });
+    let too_long = invalid(control.send(Command::PreDelayFrames(301)));
+    assert_eq!(too_long, MixError::PreDelayTooLong { predelay_frames: 301, max_predelay_frames: 300 });
+    let err = control.send(Command::PreDelayFrames(301)).unwrap_err();
+    assert!(err.to_string().contains("max_predelay_frames"), "{err}");
+    assert_eq!(err.command(), Command::PreDelayFrames(301));
+    control.send(Command::WetGain(0.5)).unwrap();
+    let (x, mut y) = (vec![0.1f32; 64], vec![0.0f32; 64]);
+    for _ in 0..4 {
+        e.process(&[&x], &mut [&mut y]).unwrap();
+    }
+    let applied: Vec<Command> = applied_frames(control.poll()).into_iter().map(|a| a.0).collect();
+    assert_eq!(applied, [Command::WetGain(0.5)], "only what fits was queued");
+
+    let matrix = Routing::Matrix { inputs: 2, outputs: 3 };
+    let mut m = engine(&plan, &random_ir(6, 64, 58), matrix, 64);
+    let mut control = m.control().unwrap();
+    assert!(!control.has_dry());
+    assert_eq!(invalid(control.send(Command::DryGain(0.5))), MixError::NoDryPath { inputs: 2, outputs: 3 });
+    assert_eq!(invalid(control.send(Command::Bypass(true))), MixError::NoDryPath { inputs: 2, outputs: 3 });
+    control.send(Command::DryGain(0.0)).unwrap();
+    control.send(Command::Bypass(false)).unwrap();
+}

@@ -244,3 +244,41 @@ fn bad_calls_are_refused_without_touching_state() {
     let e = Engine::new(&plan, &ir, Routing::TrueStereo, 8).unwrap_err();
     assert!(e.to_string().contains("4 channel"), "{e}");
 }
+
+/// A huge but finite input sample (3e38, near `f32::MAX`) would overflow the FFTs into infinities and the
+/// delay lines into NaN for a whole IR length. Sanitizing clamps it to `INPUT_LIMIT` and counts it in
+/// `clamped_inputs` (not in `nonfinite_inputs`): every output stays finite, on every schedule, with the
+/// default options (default lateness policy), in host calls shorter and longer than the block.
+#[test]
+fn a_huge_finite_input_sample_is_clamped_and_every_output_stays_finite() {
+    use partita_core::{Planner, Schedule, INPUT_LIMIT};
+    let taps: Vec<Vec<f32>> = (0..2)
+        .map(|c| partita_core::synth::decaying_noise(4800, 1500.0, 70 + c).iter().map(|v| 0.5 * v).collect())
+        .collect();
+    let ir = ImpulseResponse::new(taps, 48_000).unwrap();
+    for schedule in [Schedule::Sync, Schedule::Sliced, Schedule::Workers] {
+        for call in [37usize, 200] {
+            let plan = Planner::new().block_frames(64).schedule(schedule).plan(ir.frames()).unwrap();
+            let mut engine = Engine::new(&plan, &ir, Routing::Stereo, 256).unwrap();
+            let monitor = engine.monitor();
+            let mut noise = partita_core::synth::Noise::new(71);
+            let mut x: Vec<Vec<f32>> = (0..2).map(|_| noise.vec(24_000).iter().map(|v| 0.1 * v).collect()).collect();
+            x[0][1000] = 3e38;
+            x[1][5000] = -2.0 * INPUT_LIMIT;
+            let mut y = vec![vec![0.0f32; 24_000]; 2];
+            for at in (0..24_000).step_by(call) {
+                let end = (at + call).min(24_000);
+                let ins: Vec<&[f32]> = x.iter().map(|c| &c[at..end]).collect();
+                let mut outs: Vec<&mut [f32]> = y.iter_mut().map(|c| &mut c[at..end]).collect();
+                engine.process(&ins, &mut outs).unwrap();
+            }
+            let context = format!("{schedule}, calls of {call}");
+            assert!(y.iter().flatten().all(|v| v.is_finite()), "{context}: a non-finite output");
+            assert_eq!((monitor.clamped_inputs(), monitor.nonfinite_inputs()), (2, 0), "{context}");
+            // The clamped sample went through: the output is loud after it, not silenced.
+            let lat = engine.latency_frames();
+            let after = y[0][1000 + lat..1000 + lat + 4800].iter().fold(0.0f32, |m, v| m.max(v.abs()));
+            assert!(after > 1e4, "{context}: the clamped impulse should ring through the IR, peak {after}");
+        }
+    }
+}

@@ -124,7 +124,9 @@ impl Stage {
         let m = ins.len();
         let n = self.outs.len();
         if shared.unmute.swap(false, Relaxed) {
-            self.engine.reset();
+            // The spread reset: a bounded slice of the engine's state per block, never all of it in this
+            // callback (a long IR's state is megabytes).
+            self.engine.begin_reset();
             self.safety.unmute();
             shared.mute_reason.store(0, Relaxed);
         }
@@ -639,7 +641,8 @@ impl BridgeHandle {
         self.shared.note_error(kind, direction);
     }
 
-    /// Ends a safety mute: the engine is reset and the output fades in again.
+    /// Ends a safety mute: the engine's state is cleared by its spread reset (a slice per block, never all
+    /// in one callback) and the output fades in again.
     pub fn unmute(&self) {
         self.shared.unmute.store(true, Relaxed);
     }

@@ -215,7 +215,8 @@ fn safety_stage_mutes_on_nan_and_on_feedback() {
         let out = step(&mut capture, &mut playback, &quiet);
         assert!(out.iter().all(|&v| v == 0.0));
         handle.unmute();
-        for _ in 0..4 {
+        // The engine's spread reset: 10 ms fade-out, a slice of state per block, 10 ms fade-in.
+        for _ in 0..12 {
             step(&mut capture, &mut playback, &quiet);
         }
         let out = step(&mut capture, &mut playback, &quiet);
@@ -280,4 +281,48 @@ fn wet_dry_and_bypass() {
         playback.play(yc, t);
     }
     assert!((y3[3016] - 0.125).abs() < 1e-6 && (y3[3018] - 0.125).abs() < 1e-6, "{:?}", &y3[3014..3020]);
+}
+
+/// Unmuting clears the engine with its spread reset, not with `Engine::reset()` inside the callback: the
+/// control side sees the reset's `Applied` event (sent when the wet signal starts fading back in), more
+/// than the 10 ms fade-out after the unmute, and the sound comes back.
+#[test]
+fn unmute_uses_the_engines_spread_reset() {
+    use partita_core::Event;
+    let ir = ImpulseResponse::new(vec![vec![1.0]], RATE).unwrap();
+    let mut e = Engine::new(&Plan::uniform(64, 1).unwrap(), &ir, Routing::Mono, 1024).unwrap();
+    let mut control = e.control().unwrap();
+    let Bridge { mut capture, mut playback, handle } = Bridge::new(e, &options(EngineSide::Capture, 1, 1)).unwrap();
+    let quiet = vec![0.1f32; 256];
+    let mut t = 0u64;
+    let mut step = |capture: &mut partita_device::CaptureSide, playback: &mut partita_device::PlaybackSide| {
+        let time = CallbackTime { now_ns: ns(t), device_delay_ns: 0 };
+        t += 256;
+        capture.capture(&quiet, time);
+        let mut out = vec![0.0f32; 256];
+        playback.play(&mut out, time);
+        out
+    };
+    step(&mut capture, &mut playback);
+    handle.inject_nonfinite_output();
+    step(&mut capture, &mut playback);
+    assert_eq!(handle.stats().muted, Some(MuteReason::NonFinite));
+    let unmuted_at = 2 * 256;
+    handle.unmute();
+    let mut last = Vec::new();
+    for _ in 0..12 {
+        last = step(&mut capture, &mut playback);
+    }
+    let resets: Vec<u64> = control
+        .poll()
+        .into_iter()
+        .filter_map(|ev| match ev {
+            Event::Applied { command: Command::Reset, frame } => Some(frame),
+            _ => None,
+        })
+        .collect();
+    assert_eq!(resets.len(), 1, "one spread reset, reported to the control side");
+    assert!(resets[0] >= unmuted_at + 480, "the reset ends after its 10 ms fade-out: frame {}", resets[0]);
+    assert!((last[255] - 0.1).abs() < 1e-6, "the sound is back: {}", last[255]);
+    assert_eq!(handle.stats().muted, None);
 }

@@ -43,7 +43,7 @@ use std::sync::Arc;
 
 use ringbuf::traits::{Consumer, Producer};
 
-use crate::error::ControlError;
+use crate::error::{ControlError, MixError, SendError};
 use crate::ir::ImpulseResponse;
 use crate::prepared::{PreparedIr, SpectraRecipe};
 
@@ -91,6 +91,8 @@ pub struct Control {
     monitor: Monitor,
     /// The engine's shape has a dry signal (see [`Mix`](crate::Mix)).
     has_dry: bool,
+    /// Engine inputs and outputs.
+    shape: (usize, usize),
 }
 
 impl std::fmt::Debug for Control {
@@ -105,9 +107,10 @@ impl Control {
         recipe: Arc<SpectraRecipe>,
         status: Arc<StatusCells>,
         monitor: Monitor,
-        has_dry: bool,
+        shape: (usize, usize),
     ) -> Self {
-        Self { ends, recipe, status, monitor, has_dry }
+        let has_dry = crate::engine::has_dry_path(shape.0, shape.1);
+        Self { ends, recipe, status, monitor, has_dry, shape }
     }
 
     /// Prepares `ir` for this engine: checks it and computes every level's spectra. Allocates; run it
@@ -151,21 +154,35 @@ impl Control {
     /// Queues a command.
     ///
     /// # Errors
-    /// The command comes back in [`Refused`] when the queue is full. A pre-delay beyond the engine's
-    /// bound is refused too (check with [`max_predelay_frames`](Self::max_predelay_frames)), and so are a
-    /// non-zero dry gain and bypass on an engine whose shape has no dry signal (check with
-    /// [`has_dry`](Self::has_dry); see [`Mix`](crate::Mix)).
-    pub fn send(&mut self, command: Command) -> Result<(), Refused<Command>> {
-        let refused = match command {
-            Command::PreDelayFrames(d) => d > self.recipe.max_predelay_frames,
-            Command::DryGain(g) => g != 0.0 && !self.has_dry,
-            Command::Bypass(on) => on && !self.has_dry,
-            _ => false,
-        };
-        if refused {
-            return Err(Refused(command));
+    /// [`SendError::Invalid`] when the command does not fit the engine, and nothing is queued: a gain that
+    /// is NaN or infinite (or an output gain in dB whose linear value overflows), a pre-delay beyond the
+    /// engine's bound (check with [`max_predelay_frames`](Self::max_predelay_frames)), or a non-zero dry
+    /// gain or bypass on an engine whose shape has no dry signal (check with [`has_dry`](Self::has_dry);
+    /// see [`Mix`](crate::Mix)). [`SendError::QueueFull`] hands the command back when the queue is full.
+    pub fn send(&mut self, command: Command) -> Result<(), SendError> {
+        let invalid = |reason| Err(SendError::Invalid { command, reason });
+        let not_finite = |parameter| invalid(MixError::NotFinite { parameter });
+        match command {
+            Command::WetGain(g) if !g.is_finite() => return not_finite("wet"),
+            Command::DryGain(g) if !g.is_finite() => return not_finite("dry"),
+            Command::OutputGainDb(db) if !(db.is_finite() && 10f32.powf(db / 20.0).is_finite()) => {
+                return not_finite("output gain")
+            }
+            Command::PreDelayFrames(d) if d > self.recipe.max_predelay_frames => {
+                return invalid(MixError::PreDelayTooLong {
+                    predelay_frames: d,
+                    max_predelay_frames: self.recipe.max_predelay_frames,
+                })
+            }
+            Command::DryGain(g) if g != 0.0 && !self.has_dry => {
+                return invalid(MixError::NoDryPath { inputs: self.shape.0, outputs: self.shape.1 })
+            }
+            Command::Bypass(true) if !self.has_dry => {
+                return invalid(MixError::NoDryPath { inputs: self.shape.0, outputs: self.shape.1 })
+            }
+            _ => {}
         }
-        self.ends.commands.try_push(command).map_err(Refused)
+        self.ends.commands.try_push(command).map_err(SendError::QueueFull)
     }
 
     /// Whether the engine's shape has a dry signal: as many inputs as outputs, or a mono input.
@@ -204,6 +221,7 @@ impl Control {
         Status {
             frames_processed: self.monitor.frames_processed(),
             nonfinite_inputs: self.monitor.nonfinite_inputs(),
+            clamped_inputs: self.monitor.clamped_inputs(),
             late_results: self.monitor.late_results(),
             swaps_completed: self.status.swaps_completed.load(Ordering::Acquire),
             fade_start: opt(self.status.fade_start.load(Ordering::Acquire)),

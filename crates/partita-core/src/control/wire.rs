@@ -35,7 +35,9 @@ pub enum Command {
     /// Gain of the whole output in dB; 0 by default.
     OutputGainDb(f32),
     /// Delay of the wet signal in frames, up to the engine's `max_predelay_frames`; 0 by default.
-    /// Changes crossfade between the old and the new delay.
+    /// Changes crossfade between the old and the new delay. A change that arrives while such a crossfade
+    /// runs starts at the first block boundary after it ends, from where it ended (the output never
+    /// jumps); its `Applied` event carries that frame, and a newer request meanwhile replaces it.
     PreDelayFrames(usize),
     /// Bypass: the output crossfades to the aligned input (gain 1) and back. The levels keep running,
     /// so leaving bypass needs no warm-up. Refused like a non-zero [`DryGain`](Self::DryGain) on shapes
@@ -165,6 +167,8 @@ pub struct Status {
     pub frames_processed: u64,
     /// Non-finite input samples replaced by zero.
     pub nonfinite_inputs: u64,
+    /// Finite input samples clamped to +-[`INPUT_LIMIT`](crate::INPUT_LIMIT).
+    pub clamped_inputs: u64,
     /// Worker results that were late (see [`Monitor::late_results`]).
     pub late_results: u64,
     /// Swaps whose crossfade has finished.
@@ -224,6 +228,7 @@ pub(crate) fn queues() -> (EngineEnds, ControlEnds) {
 pub(crate) struct Counters {
     pub(crate) frames_processed: AtomicU64,
     pub(crate) nonfinite_inputs: AtomicU64,
+    pub(crate) clamped_inputs: AtomicU64,
     pub(crate) late_results: AtomicU64,
     pub(crate) refused_jobs: AtomicU64,
     pub(crate) worker_cpu_nanos: AtomicU64,
@@ -246,6 +251,12 @@ impl Monitor {
     /// Non-finite input samples (NaN, +-Inf) replaced by zero since the engine was built.
     pub fn nonfinite_inputs(&self) -> u64 {
         self.counters.nonfinite_inputs.load(Ordering::Relaxed)
+    }
+
+    /// Finite input samples beyond +-[`INPUT_LIMIT`](crate::INPUT_LIMIT) clamped to it since the engine was
+    /// built (a sign of a wrongly scaled input: full scale is 1).
+    pub fn clamped_inputs(&self) -> u64 {
+        self.counters.clamped_inputs.load(Ordering::Relaxed)
     }
 
     /// Worker results that were not ready at their due boundary (after waiting at most

@@ -9,7 +9,7 @@ use crate::control::wire::{Command, PARAM_RAMP_SECONDS};
 use crate::error::MixError;
 use crate::head::Head;
 use crate::prepared::IrSet;
-use crate::ring::TimeRing;
+use crate::ring::{prefaulted, TimeRing};
 
 /// The mix parameters of an engine's output, as plain values (the same type everywhere: the initial
 /// settings in [`EngineOptions::mix`](crate::EngineOptions::mix), the offline render's
@@ -150,9 +150,19 @@ struct Ramps {
     pd_from: usize,
     pd_to: usize,
     pd_x: Ramp,
+    /// A pre-delay asked for while a crossfade ran: it starts where that one ends.
+    pd_next: Option<usize>,
 }
 
 impl Ramps {
+    /// Crossfades the pre-delay taps from the current delay to `d` over `frames`.
+    fn start_predelay_fade(&mut self, d: usize, frames: u32) {
+        self.pd_from = self.pd_to;
+        self.pd_to = d;
+        self.pd_x = Ramp::new(0.0);
+        self.pd_x.set(1.0, frames);
+    }
+
     /// Every parameter at its default and at rest: wet 1, dry 0, output 0 dB, no bypass, no pre-delay.
     fn is_identity(&self) -> bool {
         let at = |r: &Ramp, v: f32| r.idle() && r.value == v;
@@ -164,7 +174,19 @@ impl Ramps {
             && self.pd_x.idle()
             && self.pd_to == 0
             && self.pd_from == 0
+            && self.pd_next.is_none()
     }
+}
+
+/// What [`OutputStage::apply`] did with a command.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Taken {
+    /// Applied: its ramp starts with the next frame.
+    Now,
+    /// Applied later, at a block boundary (reported then).
+    Deferred,
+    /// Not a mix command.
+    NotMine,
 }
 
 /// Where the wet signal of a chunk comes from, borrowed from the engine for one call.
@@ -218,7 +240,7 @@ impl OutputStage {
         mix: &Mix,
     ) -> Self {
         let ramp_frames = ((PARAM_RAMP_SECONDS * f64::from(sample_rate_hz)).round() as u32).max(1);
-        let scratch = || (0..outputs).map(|_| vec![0.0f32; b]).collect::<Vec<_>>();
+        let scratch = || (0..outputs).map(|_| prefaulted::<f32>(b)).collect::<Vec<_>>();
         let pd = max_predelay_frames;
         let mut stage = Self {
             ramps: Ramps {
@@ -230,6 +252,7 @@ impl OutputStage {
                 pd_from: mix.predelay_frames,
                 pd_to: mix.predelay_frames,
                 pd_x: Ramp::new(1.0),
+                pd_next: None,
             },
             ramp_frames,
             max_predelay_frames,
@@ -238,10 +261,10 @@ impl OutputStage {
             dry_live: false,
             predelay: if pd > 0 { (0..outputs).map(|_| TimeRing::new(pd + b + 1)).collect() } else { Vec::new() },
             wet: [scratch(), scratch()],
-            tap_a: vec![0.0; b],
-            tap_b: vec![0.0; b],
-            dry_chunk: vec![0.0; b],
-            gains: std::array::from_fn(|_| vec![0.0; b]),
+            tap_a: prefaulted(b),
+            tap_b: prefaulted(b),
+            dry_chunk: prefaulted(b),
+            gains: std::array::from_fn(|_| prefaulted(b)),
         };
         stage.dry_live = stage.dry_needed(false);
         stage
@@ -257,9 +280,11 @@ impl OutputStage {
         &mut self.dry[i]
     }
 
-    /// Applies a mix command at once (its ramp starts now); `false` for commands that are not the mix's.
+    /// Applies a mix command at once (its ramp starts now): [`Taken::Now`]; or, for a pre-delay that
+    /// arrives while a pre-delay crossfade runs, later ([`Taken::Deferred`], see
+    /// [`start_deferred`](Self::start_deferred)); [`Taken::NotMine`] for commands that are not the mix's.
     /// Values the control side has already checked; a non-finite one keeps the current target.
-    pub(crate) fn apply(&mut self, command: Command) -> bool {
+    pub(crate) fn apply(&mut self, command: Command) -> Taken {
         let (m, r) = (&mut self.ramps, self.ramp_frames);
         match command {
             Command::WetGain(g) => m.wet.set(finite_or(g, m.wet.target), r),
@@ -270,18 +295,35 @@ impl OutputStage {
             }
             Command::PreDelayFrames(d) => {
                 if !self.predelay.is_empty() && d <= self.max_predelay_frames {
-                    // Finish a running pre-delay crossfade at its target, then fade to the new one.
-                    m.pd_from = m.pd_to;
-                    m.pd_to = d;
-                    m.pd_x = Ramp::new(0.0);
-                    m.pd_x.set(1.0, r);
+                    if m.pd_x.idle() && m.pd_next.is_none() {
+                        m.start_predelay_fade(d, r);
+                    } else {
+                        // A crossfade runs: jumping to its target now would click. The new delay starts
+                        // at the first block boundary after the running crossfade ends (at most one ramp
+                        // and one block later), from where it ended; a later request in the meantime
+                        // replaces this one.
+                        m.pd_next = Some(d);
+                        return Taken::Deferred;
+                    }
                 }
             }
             Command::Bypass(on) if !self.dry_src.is_empty() => m.bypass.set(if on { 1.0 } else { 0.0 }, r),
             Command::DryGain(_) | Command::Bypass(_) => {} // refused by the control side for this shape
-            Command::Reset => return false,
+            Command::Reset => return Taken::NotMine,
         }
-        true
+        Taken::Now
+    }
+
+    /// At a block boundary: starts a deferred pre-delay crossfade once the running one has ended, and
+    /// returns the command to report as applied from here.
+    pub(crate) fn start_deferred(&mut self) -> Option<Command> {
+        let m = &mut self.ramps;
+        if !m.pd_x.idle() {
+            return None;
+        }
+        let d = m.pd_next.take()?;
+        m.start_predelay_fade(d, self.ramp_frames);
+        Some(Command::PreDelayFrames(d))
     }
 
     /// Starts fading the wet signal out (`to = 0`) or back in (`to = 1`), for a reset.

@@ -23,7 +23,7 @@ use crate::level::workers::{WorkerLevel, WorkerSetup};
 use crate::level::{LevelSlot, WorkerCounts};
 use crate::plan::{Plan, Schedule};
 use crate::prepared::{LevelSpec, SpectraRecipe};
-use crate::ring::TimeRing;
+use crate::ring::{Sanitized, TimeRing};
 use crate::routing::{RouteMap, Routing};
 
 pub(crate) mod mix;
@@ -33,7 +33,7 @@ pub(crate) mod slots;
 pub(crate) mod swap;
 
 pub use mix::Mix;
-use mix::{OutputStage, WetSources};
+use mix::{OutputStage, Taken, WetSources};
 pub use options::EngineOptions;
 use reset::{ResetPhase, SweepItems, SweepStep, SWEEP_SAMPLES};
 use slots::SlotLayout;
@@ -219,8 +219,8 @@ impl Engine {
     /// return `None`. Call it off the audio thread (it allocates a little).
     pub fn control(&mut self) -> Option<Control> {
         let ends = self.control.take()?;
-        let has_dry = mix::dry_sources(self.routes.inputs, self.routes.outputs).is_some();
-        Some(Control::new(ends, Arc::clone(&self.recipe), Arc::clone(&self.status), self.monitor(), has_dry))
+        let shape = (self.routes.inputs, self.routes.outputs);
+        Some(Control::new(ends, Arc::clone(&self.recipe), Arc::clone(&self.status), self.monitor(), shape))
     }
 
     /// Convolves one host call. `inputs` and `outputs` are planar, one slice per engine input and output,
@@ -228,7 +228,9 @@ impl Engine {
     /// of the stream is `sum_k h[k] x[n - latency_frames - k]`.
     ///
     /// Never allocates, frees, locks, logs or waits. Non-finite input samples are replaced by zero and
-    /// counted in [`Monitor::nonfinite_inputs`].
+    /// counted in [`Monitor::nonfinite_inputs`]; finite ones beyond +-[`INPUT_LIMIT`](crate::INPUT_LIMIT)
+    /// (about 120 dB above full scale) are clamped to it and counted in [`Monitor::clamped_inputs`], so no
+    /// input can overflow the delay lines into NaN.
     ///
     /// # Errors
     /// [`ProcessError`] when the buffer counts or lengths are wrong; the outputs are then zeroed where
@@ -243,7 +245,7 @@ impl Engine {
         }
         let _flush = DenormalGuard::new();
         let b = self.plan.block_frames;
-        let mut bad = 0u64;
+        let mut bad = Sanitized::default();
         let mut peak = 0.0f32;
         let mut done = 0;
         while done < frames {
@@ -272,8 +274,11 @@ impl Engine {
                 self.block_boundary();
             }
         }
-        if bad > 0 {
-            self.counters.nonfinite_inputs.fetch_add(bad, Ordering::Relaxed);
+        if bad.nonfinite > 0 {
+            self.counters.nonfinite_inputs.fetch_add(bad.nonfinite, Ordering::Relaxed);
+        }
+        if bad.clamped > 0 {
+            self.counters.clamped_inputs.fetch_add(bad.clamped, Ordering::Relaxed);
         }
         if peak > 0.0 && peak.to_bits() > self.status.peak_bits.load(Ordering::Relaxed) {
             self.status.peak_bits.fetch_max(peak.to_bits(), Ordering::AcqRel);
@@ -355,12 +360,17 @@ impl Engine {
     fn apply_commands(&mut self, emit: i64) {
         while self.reset.is_none() {
             let Some(command) = self.ends.commands.try_pop() else { break };
-            if !self.out.apply(command) {
-                // Command::Reset: reported when the wet signal starts fading back in.
-                self.out.fade_wet(0.0);
-                self.reset = Some(ResetPhase::FadeOut);
-                continue;
+            match self.out.apply(command) {
+                Taken::Now => self.report(command, emit),
+                Taken::Deferred => {} // reported when it starts
+                Taken::NotMine => {
+                    // Command::Reset: reported when the wet signal starts fading back in.
+                    self.out.fade_wet(0.0);
+                    self.reset = Some(ResetPhase::FadeOut);
+                }
             }
+        }
+        if let Some(command) = self.out.start_deferred() {
             self.report(command, emit);
         }
         self.out.update_dry_live(&self.inputs, self.now, self.latency, self.reset.is_some());
@@ -432,6 +442,19 @@ impl Engine {
     /// Number of worker threads the engine runs.
     pub fn worker_threads(&self) -> usize {
         self.levels.iter().filter(|l| l.worker_priority().is_some()).count()
+    }
+
+    /// Starts the spread reset of [`Command::Reset`] from the audio thread, for a host or bridge that must
+    /// clear the engine inside a callback (say after a safety mute): the wet signal fades out, the state is
+    /// zeroed a bounded slice per block boundary, then the wet signal fades back in on fresh input; the dry
+    /// signal passes throughout. Real-time safe: it only sets state, and no callback does more than one
+    /// slice of the work ([`reset`](Self::reset) zeroes everything in one call instead). Does nothing while a
+    /// reset already runs. The control side sees an `Applied` event for `Command::Reset` when it ends.
+    pub fn begin_reset(&mut self) {
+        if self.reset.is_none() {
+            self.out.fade_wet(0.0);
+            self.reset = Some(ResetPhase::FadeOut);
+        }
     }
 
     /// Returns to the freshly built state at once: silence in every delay line and accumulator, the
@@ -562,6 +585,11 @@ const _: () = {
     assert_send::<Control>();
     assert_send_sync::<Monitor>();
 };
+
+/// Whether an engine of `inputs` x `outputs` has a dry signal (see [`Mix`]).
+pub(crate) fn has_dry_path(inputs: usize, outputs: usize) -> bool {
+    mix::dry_sources(inputs, outputs).is_some()
+}
 
 /// Output frame number (since the engine was built) of engine frame `emit`.
 fn out_frame(latency: usize, frame_base: u64, emit: i64) -> u64 {

@@ -248,7 +248,7 @@ impl LevelRunner {
         let inv = planner.plan_fft_inverse(2 * n);
         let scratch_len = fwd.get_scratch_len().max(inv.get_scratch_len());
         let fdl = inputs.iter().map(|_| Spectra::new(shape.partitions, n + 1)).collect();
-        let results = (0..2 * outputs.len()).map(|_| vec![0.0; n]).collect();
+        let results = (0..2 * outputs.len()).map(|_| prefaulted(n)).collect();
         Self {
             n,
             partitions: shape.partitions,
@@ -258,15 +258,15 @@ impl LevelRunner {
             phase_blocks: shape.phase_blocks,
             fwd,
             inv,
-            time: vec![0.0; 2 * n],
-            spec: vec![Complex32::new(0.0, 0.0); n + 1],
-            scratch: vec![Complex32::new(0.0, 0.0); scratch_len],
+            time: prefaulted(2 * n),
+            spec: prefaulted(n + 1),
+            scratch: prefaulted(scratch_len),
             inputs,
             fdl,
             newest: 0,
             outputs,
-            acc_re: vec![0.0; n + 1],
-            acc_im: vec![0.0; n + 1],
+            acc_re: prefaulted(n + 1),
+            acc_im: prefaulted(n + 1),
             results,
         }
     }

@@ -75,8 +75,8 @@ impl FourStep {
             inv2,
             twiddle,
             half,
-            column: vec![Complex32::new(0.0, 0.0); n1.max(n2)],
-            scratch: vec![Complex32::new(0.0, 0.0); scratch_len],
+            column: crate::ring::prefaulted(n1.max(n2)),
+            scratch: crate::ring::prefaulted(scratch_len),
         }
     }
 

@@ -162,7 +162,7 @@ impl SlicedLevel {
             work: prefaulted(n),
             done: prefaulted(n),
             spec: prefaulted(n + 1),
-            chunk: vec![0.0; 2 * CHUNK],
+            chunk: prefaulted(2 * CHUNK),
             cursor: 0,
             spent: 0,
             slice: 0,

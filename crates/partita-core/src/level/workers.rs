@@ -194,7 +194,7 @@ impl WorkerLevel {
         let block = n / period_blocks as usize;
         let chunk = transfer_chunk(n, block);
         let worker_shared = Arc::clone(&shared);
-        let windows: Vec<Vec<f32>> = (0..inputs.len()).map(|_| vec![0.0f32; 2 * n]).collect();
+        let windows: Vec<Vec<f32>> = (0..inputs.len()).map(|_| crate::ring::prefaulted::<f32>(2 * n)).collect();
         let thread = std::thread::Builder::new()
             .name(format!("partita-level-{}", setup.name_index))
             .spawn(move || worker_main(runner, windows, worker_shared, setup))?;
@@ -478,7 +478,9 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
         );
     }
     let n = shared.n;
-    // Touch the parking machinery and the CPU clock once before reporting ready.
+    // Touch the parking machinery, the CPU clock and the stack once before reporting ready, so that no
+    // job takes a first-use page fault.
+    crate::ring::prefault_stack(crate::ring::WORKER_STACK_PREFAULT_BYTES);
     std::thread::park_timeout(Duration::ZERO);
     let _ = crate::platform::thread_cpu_seconds();
     shared.ready.store(true, Ordering::Release);
