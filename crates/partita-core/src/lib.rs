@@ -27,7 +27,7 @@
 #![deny(unsafe_op_in_unsafe_fn)]
 
 pub mod control;
-pub mod denormal;
+mod denormal;
 mod engine;
 mod error;
 mod head;

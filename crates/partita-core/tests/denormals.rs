@@ -1,6 +1,7 @@
 //! Input that decays into the subnormal range (DESIGN.md T9; the load figure is a bench case, see
 //! docs/benchmarks/control.md). Here: the output stays correct while the input is normal, carries no subnormal value
-//! once the input is subnormal (flush-to-zero is on in `process()` and in every worker), and the
+//! once the input is subnormal (flush-to-zero is on in `process()` and in every worker, whose threads
+//! report their mode; a test switch that starts them without it shows the check failing), and the
 //! caller's floating-point mode is back after each call.
 
 mod support;
@@ -48,6 +49,10 @@ fn subnormal_input_is_flushed_and_the_callers_mode_restored() {
             .unwrap();
         let options = EngineOptions { lateness: Lateness::Wait, ..EngineOptions::new(256) };
         let mut engine = Engine::with_options(&plan, &ir, Routing::Stereo, options).unwrap();
+        // Every worker thread reports flush-to-zero on (read from its own MXCSR / FPCR when it started).
+        let modes = engine.worker_flush_modes();
+        assert_eq!(modes.len(), engine.worker_threads(), "{schedule:?}");
+        assert!(modes.iter().all(|&on| on), "{schedule:?}: a worker runs without flush-to-zero: {modes:?}");
         let lat = engine.latency_frames();
         let total = frames + lat;
         let mut out = vec![vec![0.0f32; total]; 2];
@@ -78,4 +83,15 @@ fn subnormal_input_is_flushed_and_the_callers_mode_restored() {
             assert!(!tail.iter().any(|&v| subnormal(v)), "{schedule:?}: a subnormal reached the output");
         }
     }
+    // The workers' check can fail: with the test switch, worker threads start without flush-to-zero and
+    // say so. (One test in this binary: the switch is process-wide.)
+    partita_core::hooks::set_workers_without_flush(true);
+    let plan = Planner::new().block_frames(32).schedule(Schedule::Workers).min_worker_frames(0).plan(4000).unwrap();
+    let engine = Engine::new(&plan, &random_ir(2, 4000, 6), Routing::Stereo, 256).unwrap();
+    partita_core::hooks::set_workers_without_flush(false);
+    let modes = engine.worker_flush_modes();
+    assert!(
+        !modes.is_empty() && modes.iter().all(|&on| !on),
+        "the switch must show in the workers' reports: {modes:?}"
+    );
 }

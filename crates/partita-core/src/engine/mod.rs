@@ -556,6 +556,11 @@ impl Engine {
         self.levels.iter().filter_map(LevelSlot::sliced_costs).map(|(_, job, period)| (job, period)).collect()
     }
 
+    /// For each worker thread, whether it runs with flush-to-zero on (it reports its mode when it starts).
+    pub fn worker_flush_modes(&self) -> Vec<bool> {
+        self.levels.iter().filter_map(LevelSlot::worker_flushing).collect()
+    }
+
     /// Makes every worker job take `delay` longer, to force late results.
     pub fn set_worker_test_delay(&self, delay: std::time::Duration) {
         for level in &self.levels {

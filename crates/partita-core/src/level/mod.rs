@@ -142,6 +142,15 @@ impl LevelSlot {
         }
     }
 
+    /// Test hook: whether a worker level's thread flushes subnormals (`None` for other schedules).
+    #[cfg(feature = "test-hooks")]
+    pub(crate) fn worker_flushing(&self) -> Option<bool> {
+        match self {
+            Self::Workers(w) => Some(w.flushing()),
+            _ => None,
+        }
+    }
+
     /// Test hook: a worker level's jobs take `delay` longer.
     #[cfg(feature = "test-hooks")]
     pub(crate) fn set_worker_test_delay(&self, delay: std::time::Duration) {

@@ -84,6 +84,8 @@ struct JobCells {
     cpu_nanos: AtomicU64,
     /// Set by the worker once it is running and will not allocate again.
     ready: AtomicBool,
+    /// Whether the worker thread flushes subnormals to zero, as it found its mode after setting it.
+    flushing: AtomicBool,
     /// Test hook: extra time each job takes, in microseconds.
     delay_micros: AtomicU64,
     /// Granted SCHED_FIFO priority, or a negative OS error; `i64::MIN` until the thread reports.
@@ -186,6 +188,7 @@ impl WorkerLevel {
             shutdown: AtomicBool::new(false),
             cpu_nanos: AtomicU64::new(0),
             ready: AtomicBool::new(false),
+            flushing: AtomicBool::new(false),
             delay_micros: AtomicU64::new(0),
             priority: std::sync::atomic::AtomicI64::new(i64::MIN),
         });
@@ -405,6 +408,12 @@ impl WorkerLevel {
         }
     }
 
+    /// Whether the worker thread runs with flush-to-zero on (read once it has started).
+    #[cfg(feature = "test-hooks")]
+    pub(crate) fn flushing(&self) -> bool {
+        self.shared.flushing.load(Ordering::Relaxed)
+    }
+
     pub(crate) fn late(&self) -> u64 {
         self.late
     }
@@ -466,7 +475,11 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
         }
     }
     let _alive = Alive;
+    #[cfg(feature = "test-hooks")]
+    let _flush = (!crate::hooks::WORKERS_WITHOUT_FLUSH.load(Ordering::Relaxed)).then(DenormalGuard::new);
+    #[cfg(not(feature = "test-hooks"))]
     let _flush = DenormalGuard::new();
+    shared.flushing.store(DenormalGuard::active(), Ordering::Relaxed);
     if let Some(p) = setup.priority {
         let granted = crate::platform::try_realtime_priority(p);
         shared.priority.store(
