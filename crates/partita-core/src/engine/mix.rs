@@ -6,9 +6,9 @@
 //! Runs on the audio thread; [`OutputStage`] owns every buffer it touches.
 
 use crate::control::wire::{Command, PARAM_RAMP_SECONDS};
+use crate::engine::swap::IrPtr;
 use crate::error::MixError;
 use crate::head::Head;
-use crate::prepared::IrSet;
 use crate::ring::{prefaulted, TimeRing};
 
 /// The mix parameters of an engine's output, as plain values (the same type everywhere: the initial
@@ -196,7 +196,7 @@ pub(crate) struct WetSources<'a> {
     /// The direct-form head, if the plan has one, with the engine's input rings it reads.
     pub(crate) head: Option<&'a mut Head>,
     pub(crate) inputs: &'a [TimeRing],
-    pub(crate) irs: &'a [Option<Box<IrSet>>; 2],
+    pub(crate) irs: &'a [Option<IrPtr>; 2],
     /// The IR slot heard, and the second one with its crossfade weight per frame while a swap fades.
     pub(crate) first: usize,
     pub(crate) second: Option<(usize, &'a dyn Fn(i64) -> f32)>,
@@ -382,7 +382,7 @@ impl OutputStage {
                 src.acc[first][o].take(emit, y);
                 peak = peak.max(peak_abs(y));
             }
-            if let (Some(head), Some(ir)) = (src.head, &src.irs[first]) {
+            if let (Some(head), Some(ir)) = (src.head, src.irs[first].as_ref().map(IrPtr::get)) {
                 let wet = &mut self.wet[first];
                 for w in wet.iter_mut() {
                     w[..len].fill(0.0);
@@ -405,7 +405,7 @@ impl OutputStage {
             for (ring, w) in src.acc[slot].iter_mut().zip(wet.iter_mut()) {
                 ring.take(emit, &mut w[..len]);
             }
-            if let (Some(head), Some(ir)) = (head.as_deref_mut(), &src.irs[slot]) {
+            if let (Some(head), Some(ir)) = (head.as_deref_mut(), src.irs[slot].as_ref().map(IrPtr::get)) {
                 head.add(src.inputs, emit, wet, len, &ir.head);
             }
         }

@@ -350,7 +350,7 @@ impl Engine {
                 cover_end[k] = start + n as i64;
                 irs.release_mask(start, n)
             });
-            let level_irs = [irs.irs[0].as_ref().map(|s| &s.levels[k]), irs.irs[1].as_ref().map(|s| &s.levels[k])];
+            let level_irs = [0, 1].map(|slot| irs.irs[slot].as_ref().map(|s| &s.get().levels[k]));
             let io = LevelIo { inputs, outputs: &mut *acc, now: *now, emit };
             level.at_boundary(io, level_irs, release, block, kernel);
         }

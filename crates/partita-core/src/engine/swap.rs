@@ -2,6 +2,7 @@
 //! crossfade (see [`crate::control`]), the flip to the new IR, and the hand-back of the old one to the
 //! control side once no work in flight reads it. Runs on the audio thread, at block boundaries.
 
+use std::ptr::NonNull;
 use std::sync::atomic::Ordering;
 
 use ringbuf::traits::{Consumer, Producer};
@@ -47,10 +48,50 @@ impl SwapRun {
     }
 }
 
+/// An IR set the engine owns, held by pointer. Worker jobs read its spectra through raw pointers while
+/// the engine moves its own values around (picking a swap up, retiring the old set); a `Box` would assert
+/// unique access on every move, which such readers must not overlap. A `NonNull` is a plain pointer: moving
+/// it asserts nothing, and the set stays where it was allocated until it goes back into a `Box` to leave
+/// the engine ([`into_box`](Self::into_box)) or be dropped.
+#[derive(Debug)]
+pub(crate) struct IrPtr(NonNull<IrSet>);
+
+// SAFETY: an `IrPtr` owns its `IrSet` (plain vectors of floats, `Send`) exactly as a `Box` would; it is
+// moved between threads only with the engine, and the engine reads the set only through `get`.
+unsafe impl Send for IrPtr {}
+
+impl IrPtr {
+    pub(crate) fn new(set: Box<IrSet>) -> Self {
+        Self(NonNull::from(Box::leak(set)))
+    }
+
+    /// The set, for reading (the engine's levels, and worker jobs through raw pointers derived from it).
+    pub(crate) fn get(&self) -> &IrSet {
+        // SAFETY: the pointer came from `Box::leak` in `new` and is freed only by `into_box` or `drop`,
+        // which take `self`; nothing writes the set while the engine holds it.
+        unsafe { self.0.as_ref() }
+    }
+
+    /// The set back in a `Box`, to hand to the control side. Its address does not change.
+    pub(crate) fn into_box(self) -> Box<IrSet> {
+        let ptr = self.0;
+        std::mem::forget(self);
+        // SAFETY: `ptr` came from `Box::leak` in `new`; `forget` above keeps `drop` from freeing it too.
+        unsafe { Box::from_raw(ptr.as_ptr()) }
+    }
+}
+
+impl Drop for IrPtr {
+    fn drop(&mut self) {
+        // SAFETY: as in `into_box`: the pointer came from `Box::leak` and is freed once, here.
+        drop(unsafe { Box::from_raw(self.0.as_ptr()) });
+    }
+}
+
 /// The two IR slots: `active` is heard when no swap runs.
 #[derive(Debug)]
 pub(crate) struct IrSlots {
-    pub(crate) irs: [Option<Box<IrSet>>; 2],
+    pub(crate) irs: [Option<IrPtr>; 2],
     pub(crate) active: usize,
     pub(crate) run: Option<SwapRun>,
 }
@@ -58,7 +99,7 @@ pub(crate) struct IrSlots {
 impl IrSlots {
     /// The slots with `first` active.
     pub(crate) fn new(first: IrSet) -> Self {
-        Self { irs: [Some(Box::new(first)), None], active: 0, run: None }
+        Self { irs: [Some(IrPtr::new(Box::new(first))), None], active: 0, run: None }
     }
 
     /// The IR slot heard first, and the one fading in while a swap runs.
@@ -103,8 +144,8 @@ impl IrSlots {
                 status.swaps_completed.fetch_add(1, Ordering::AcqRel);
             }
             if s.flipped && self.irs[s.old].is_some() && !levels.iter().any(|l| l.holds(s.old)) {
-                if let Some(set) = self.irs[s.old].take() {
-                    let new_id = self.irs[s.new].as_ref().map_or(0, |n| n.id);
+                if let Some(set) = self.irs[s.old].take().map(IrPtr::into_box) {
+                    let new_id = self.irs[s.new].as_ref().map_or(0, |n| n.get().id);
                     let report = SwapReport {
                         new_id,
                         old_id: set.id,
@@ -115,7 +156,7 @@ impl IrSlots {
                     if let Err(Event::Retired { ir, .. }) =
                         ends.events.try_push(Event::Retired { ir: PreparedIr { set }, report })
                     {
-                        self.irs[s.old] = Some(ir.set); // the queue is full: try again next boundary
+                        self.irs[s.old] = Some(IrPtr::new(ir.set)); // the queue is full: try again next boundary
                     }
                 }
             }
@@ -143,7 +184,7 @@ impl IrSlots {
         let Some(request) = ends.swaps.try_pop() else { return };
         let new = 1 - self.active;
         let id = request.set.id;
-        self.irs[new] = Some(request.set);
+        self.irs[new] = Some(IrPtr::new(request.set));
         let start = fade_from.max(emit);
         let end = start + request.fade_frames as i64;
         self.run = Some(SwapRun { old: self.active, new, picked: emit, start, end, flipped: false, old_until: emit });
@@ -156,6 +197,6 @@ impl IrSlots {
 
     /// Bytes of the largest IR held (one IR; a swap holds a second one while it runs).
     pub(crate) fn memory_bytes(&self) -> usize {
-        self.irs.iter().flatten().map(|s| s.memory_bytes()).max().unwrap_or(0)
+        self.irs.iter().flatten().map(|s| s.get().memory_bytes()).max().unwrap_or(0)
     }
 }

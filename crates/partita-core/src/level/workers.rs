@@ -539,8 +539,10 @@ fn worker_main(mut runner: LevelRunner, mut windows: Vec<Vec<f32>>, shared: Arc<
                     continue;
                 }
                 // SAFETY: the engine published this pointer before `released` (release ordering,
-                // observed above with acquire) and keeps the IR it points to alive and unchanged
-                // until it has seen `completed > job`, which is published only after this use.
+                // observed above with acquire). It points into an IR set the engine holds through a
+                // `NonNull` (`engine::swap::IrPtr`, so no move of the engine's values asserts unique
+                // access to it) and keeps alive and unchanged until it has seen `completed > job`, which
+                // is published only after this use.
                 let ir = unsafe { &*ptr };
                 for w in 0..shared.outputs {
                     runner.accumulate(w, setup.kernel, ir);
