@@ -11,7 +11,7 @@ mod support;
 use std::time::{Duration, Instant};
 
 use partita_core::synth::{decaying_noise, Noise};
-use partita_core::{naive, Engine, ImpulseResponse, Planner, Routing};
+use partita_core::{naive, Engine, ImpulseResponse, Planner, Routing, Schedule};
 use partita_device::{
     DeviceOptions, EngineSide, Fault, LiveDevices, LiveStream, MuteReason, SafetyOptions, StreamOptions,
 };
@@ -24,8 +24,21 @@ fn stereo_ir(frames: usize, gain: f32) -> Vec<Vec<f32>> {
 }
 
 fn engine(taps: &[Vec<f32>], routing: Routing, block: usize) -> Engine {
+    engine_with(taps, routing, block, Schedule::Sync)
+}
+
+/// An engine whose levels above the block all run on `schedule` (no size thresholds), with the default
+/// options (default lateness policy).
+fn engine_with(taps: &[Vec<f32>], routing: Routing, block: usize, schedule: Schedule) -> Engine {
     let ir = ImpulseResponse::new(taps.to_vec(), RATE).unwrap();
-    let plan = Planner::new().block_frames(block).plan(ir.frames()).unwrap();
+    let plan = Planner::new()
+        .block_frames(block)
+        .schedule(schedule)
+        .min_sliced_frames(0)
+        .min_worker_frames(0)
+        .plan(ir.frames())
+        .unwrap();
+    assert!(schedule == Schedule::Sync || plan.levels.iter().any(|l| l.schedule == schedule), "{schedule}: {plan:?}");
     Engine::new(&plan, &ir, routing, 4096).unwrap()
 }
 
@@ -78,9 +91,9 @@ impl Run {
 /// One end-to-end run at the server's current period: 2 s of stereo noise through a 4800-tap stereo
 /// IR, recorded, and compared window by window with the offline convolution (DESIGN.md section 4
 /// bound) at the lag of the first sound.
-fn end_to_end(side: EngineSide) -> Run {
+fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
     let taps = stereo_ir(4800, 0.05);
-    let live = start_live(engine(&taps, Routing::Stereo, 64), side);
+    let live = start_live(engine_with(&taps, Routing::Stereo, 64, schedule), side);
     // Past the 250 ms fade-in before the signal starts.
     let start = RATE as usize / 2;
     let len = 2 * RATE as usize;
@@ -134,14 +147,14 @@ fn end_to_end(side: EngineSide) -> Run {
 /// Runs `end_to_end` and judges it: every window exact; or, when the run counted glitches (a
 /// non-real-time server on a busy machine misses cycles and reports xruns), once more, and then at
 /// least `min_exact` of the windows exact. Mismatches in a run without any counted glitch always fail.
-fn judged_end_to_end(side: EngineSide, min_exact: f64) -> Run {
-    let first = end_to_end(side);
+fn judged_end_to_end(side: EngineSide, schedule: Schedule, min_exact: f64) -> Run {
+    let first = end_to_end(side, schedule);
     if first.clean() {
         return first;
     }
     assert!(first.glitches > 0, "{side:?}: {:?} windows exact, yet no xrun or overrun was counted", first.exact);
     eprintln!("WARNING {side:?}: {} glitches counted; running again", first.glitches);
-    let again = end_to_end(side);
+    let again = end_to_end(side, schedule);
     if !again.clean() {
         assert!(again.glitches > 0, "{side:?}: {:?} windows exact, yet no xrun or overrun was counted", again.exact);
         let (good, total) = again.exact;
@@ -159,8 +172,14 @@ fn judged_end_to_end(side: EngineSide, min_exact: f64) -> Run {
 fn end_to_end_equals_the_offline_convolution() {
     let _serial = serial();
     let Some(server) = jack_or_skip("end_to_end_equals_the_offline_convolution", 256) else { return };
-    for side in [EngineSide::Capture, EngineSide::Playback] {
-        let run = judged_end_to_end(side, 0.75);
+    // Sync and sliced levels: both run inside the callback, so a 256-frame period (4 engine blocks per
+    // callback) is fine for them. (Worker levels need the host period to plan for; see the 64-frame test.)
+    for (side, schedule) in [
+        (EngineSide::Capture, Schedule::Sync),
+        (EngineSide::Playback, Schedule::Sync),
+        (EngineSide::Capture, Schedule::Sliced),
+    ] {
+        let run = judged_end_to_end(side, schedule, 0.75);
         let want = (run.lag + run.ports as usize) as f64;
         assert!(
             (run.reported - want).abs() <= 256.0 + 1.0,
@@ -181,12 +200,21 @@ fn end_to_end_equals_the_offline_convolution() {
 fn end_to_end_at_period_64() {
     let _serial = serial();
     let Some(server) = jack_or_skip("end_to_end_at_period_64", 64) else { return };
-    let run = judged_end_to_end(EngineSide::Capture, 0.0);
-    assert!(run.lag >= 64 && run.lag <= 64 * 6, "lag {}", run.lag);
-    let want = (run.lag + run.ports as usize) as f64;
-    // The reported figure is a mean over the run: glitches (re-priming, then trimming) move it a little.
-    let tolerance = if run.clean() { 65.0 } else { 64.0 * 6.0 };
-    assert!((run.reported - want).abs() <= tolerance, "reported {:.1}, lag {} + {}", run.reported, run.lag, run.ports);
+    // Every schedule at one block per callback, with the default lateness policy.
+    for schedule in [Schedule::Sync, Schedule::Sliced, Schedule::Workers] {
+        let run = judged_end_to_end(EngineSide::Capture, schedule, 0.0);
+        assert!(run.lag >= 64 && run.lag <= 64 * 6, "{schedule}: lag {}", run.lag);
+        let want = (run.lag + run.ports as usize) as f64;
+        // The reported figure is a mean over the run: glitches (re-priming, then trimming) move it a little.
+        let tolerance = if run.clean() { 65.0 } else { 64.0 * 6.0 };
+        assert!(
+            (run.reported - want).abs() <= tolerance,
+            "{schedule}: reported {:.1}, lag {} + {}",
+            run.reported,
+            run.lag,
+            run.ports
+        );
+    }
     drop(server);
 }
 
