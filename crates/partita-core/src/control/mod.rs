@@ -107,9 +107,8 @@ impl Control {
         recipe: Arc<SpectraRecipe>,
         status: Arc<StatusCells>,
         monitor: Monitor,
-        shape: (usize, usize),
+        (shape, has_dry): ((usize, usize), bool),
     ) -> Self {
-        let has_dry = crate::engine::has_dry_path(shape.0, shape.1);
         Self { ends, recipe, status, monitor, has_dry, shape }
     }
 

@@ -219,8 +219,9 @@ impl Engine {
     /// return `None`. Call it off the audio thread (it allocates a little).
     pub fn control(&mut self) -> Option<Control> {
         let ends = self.control.take()?;
-        let shape = (self.routes.inputs, self.routes.outputs);
-        Some(Control::new(ends, Arc::clone(&self.recipe), Arc::clone(&self.status), self.monitor(), shape))
+        let (inputs, outputs) = (self.routes.inputs, self.routes.outputs);
+        let dry = ((inputs, outputs), mix::dry_sources(inputs, outputs).is_some());
+        Some(Control::new(ends, Arc::clone(&self.recipe), Arc::clone(&self.status), self.monitor(), dry))
     }
 
     /// Convolves one host call. `inputs` and `outputs` are planar, one slice per engine input and output,
@@ -590,11 +591,6 @@ const _: () = {
     assert_send::<Control>();
     assert_send_sync::<Monitor>();
 };
-
-/// Whether an engine of `inputs` x `outputs` has a dry signal (see [`Mix`]).
-pub(crate) fn has_dry_path(inputs: usize, outputs: usize) -> bool {
-    mix::dry_sources(inputs, outputs).is_some()
-}
 
 /// Output frame number (since the engine was built) of engine frame `emit`.
 fn out_frame(latency: usize, frame_base: u64, emit: i64) -> u64 {
