@@ -162,3 +162,32 @@ fn workers_and_sliced_s1_report_measured_load_and_worst_callback() {
         assert!(levels.iter().filter(big).count() >= 1, "{v}");
     }
 }
+
+/// `plan --host-period N`: worker levels are at least 2N frames (shorter ones run in the callback), the JSON
+/// says the period, and `--measure` calls the engine with N frames per call without a late result.
+#[test]
+fn host_period_keeps_worker_levels_at_least_two_periods_long() {
+    let v = plan_json(&[
+        "--ir-seconds",
+        "10",
+        "--schedule",
+        "workers",
+        "--host-period",
+        "1024",
+        "--measure",
+        "--measure-seconds",
+        "1",
+    ]);
+    assert_eq!(v["host_period_frames"], 1024);
+    let levels = v["levels"].as_array().unwrap();
+    let workers: Vec<u64> =
+        levels.iter().filter(|l| l["schedule"] == "workers").map(|l| l["block_frames"].as_u64().unwrap()).collect();
+    assert!(!workers.is_empty() && workers.iter().all(|&n| n >= 2048), "{levels:?}");
+    assert_eq!(v["late_results"], 0, "{v}");
+    let out = Command::new(env!("CARGO_BIN_EXE_partita"))
+        .args(["plan", "--ir-seconds", "1", "--host-period", "0"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--host-period"), "{}", String::from_utf8_lossy(&out.stderr));
+}

@@ -23,6 +23,9 @@ use serde_json::json;
 
 use super::{dbfs, CmdResult};
 use crate::signals::Signals;
+
+/// The host period assumed when the audio host does not report one (frames): a long ALSA period.
+const UNKNOWN_PERIOD_FRAMES: usize = 1024;
 use partita::calibration::machine_costs;
 
 /// Arguments of `partita monitor`.
@@ -204,8 +207,12 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     // Plan for the longer of the two, so either fits the engine's levels.
     let plan_frames = ir.frames().max(alt.as_ref().map_or(0, |a| a.frames()));
     let map = routing.resolve(ir.channels())?;
+    // The engine sees calls of the device's period: worker levels must be at least twice as long (see
+    // Planner::host_period_frames). When the host does not say, assume 1024 frames, a long ALSA period.
+    let host_period = devices.period_frames().map_or(UNKNOWN_PERIOD_FRAMES, |p| p as usize);
     let planner = Planner::new()
         .block_frames(args.block.unwrap_or(64))
+        .host_period_frames(host_period)
         .zero_latency(args.zero_latency)
         .schedule(args.schedule)
         .cost_model(CostModel::Measured(machine_costs(Kernel::detect(), false)))
@@ -223,7 +230,12 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     };
     // The stream starts at its wet/dry settings, without a ramp; the engine's own mixer is the only one.
     let mix = Mix { wet: args.wet as f32, dry: args.dry as f32, ..Mix::default() };
-    let options = EngineOptions { realtime_workers: args.realtime_workers, mix, ..EngineOptions::new(4096) };
+    let options = EngineOptions {
+        realtime_workers: args.realtime_workers,
+        mix,
+        host_period_frames: Some(host_period),
+        ..EngineOptions::new(4096)
+    };
     let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
     let mut control = engine.control().ok_or("the engine's control handle was taken")?;
     // The IR not playing, prepared and ready to hand over; it comes back when swapped out.

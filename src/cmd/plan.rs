@@ -43,6 +43,10 @@ pub struct PlanArgs {
     /// longer callbacks when such a level completes); 0 puts every level above the block on a worker.
     #[arg(long, value_name = "N", default_value_t = 0)]
     min_worker_frames: usize,
+    /// Frames the host passes per call (its period), when more than one block: worker levels are kept at
+    /// least twice as long, and --measure calls the engine with this many frames [default: one block].
+    #[arg(long, value_name = "N")]
+    host_period: Option<usize>,
     /// With --schedule sliced: levels below this many frames stay in the callback whole (their job is
     /// cheaper than slicing it); 0 slices every level above the block.
     #[arg(long, value_name = "N", default_value_t = 2048)]
@@ -156,6 +160,13 @@ pub fn run(args: PlanArgs) -> CmdResult {
         .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
         .cost_model(model.clone())
         .shape(shape);
+    if args.host_period == Some(0) {
+        return Err("--host-period must be at least 1 frame".into());
+    }
+    let planner = match args.host_period {
+        Some(h) => planner.host_period_frames(h),
+        None => planner,
+    };
 
     let (plan, reason) = if let Some(ms) = args.latency_ms {
         if !(ms.is_finite() && ms >= 0.0) {
@@ -178,14 +189,16 @@ pub fn run(args: PlanArgs) -> CmdResult {
     // Build the engine: it gives the exact memory figure, and --measure runs it.
     let taps = partita_core::synth::decaying_noise(ir_frames, (ir_frames as f64 / 2.0).max(1.0), 1);
     let ir = ImpulseResponse::new(vec![taps; routing.ir_channels()], rate)?;
+    let call_frames = args.host_period.unwrap_or(plan.block_frames);
     let options = partita_core::EngineOptions {
         realtime_workers: args.realtime_workers,
-        ..partita_core::EngineOptions::new(plan.block_frames)
+        host_period_frames: args.host_period,
+        ..partita_core::EngineOptions::new(call_frames.max(plan.block_frames))
     };
     let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
     let memory = engine.memory_bytes();
     let measured =
-        args.measure.then(|| measure::run(&mut engine, rate, args.measure_seconds, plan.block_frames, args.pacing));
+        args.measure.then(|| measure::run(&mut engine, rate, args.measure_seconds, call_frames, args.pacing));
 
     let ms = |frames: usize| frames as f64 * 1000.0 / rate_f;
     if args.json {
@@ -195,6 +208,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
             "routing": format!("{routing:?}"),
             "paths": shape.paths,
             "block_frames": plan.block_frames,
+            "host_period_frames": call_frames,
             "zero_latency": plan.zero_latency,
             "latency_frames": plan.latency_frames(),
             "latency_ms": ms(plan.latency_frames()),
@@ -263,6 +277,9 @@ pub fn run(args: PlanArgs) -> CmdResult {
     );
     println!("predicted    {predicted:.3}% of one core ({} model, all paths)", args.model);
     println!("memory       {:.1} MB", memory as f64 / 1e6);
+    if let Some(h) = args.host_period {
+        println!("host period  {h} frames per call ({:.3} ms): worker levels are at least {} frames", ms(h), 2 * h);
+    }
     if engine.worker_threads() > 0 {
         println!("workers      {} thread(s)", engine.worker_threads());
     }
@@ -283,7 +300,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
                 measure::Pacing::None => "back to back (not paced)",
             },
             m.max_pct,
-            ms(plan.block_frames),
+            ms(call_frames),
             m.max_wall_pct,
             m.p999_pct,
             m.late

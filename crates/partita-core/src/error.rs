@@ -237,6 +237,14 @@ pub enum EngineError {
     Control(ControlError),
     /// The initial mix does not fit the engine.
     Mix(MixError),
+    /// A `workers` level is shorter than twice the host period: a job released in one host call could be
+    /// due in the same call, and always be late.
+    WorkerLevelTooShort {
+        /// The level's block N.
+        level_frames: usize,
+        /// The host period the engine was told (or one block).
+        host_period_frames: usize,
+    },
 }
 
 impl fmt::Display for EngineError {
@@ -253,6 +261,12 @@ impl fmt::Display for EngineError {
             Self::Spawn(e) => write!(f, "could not start a worker thread: {e}"),
             Self::Control(e) => write!(f, "{e}"),
             Self::Mix(e) => write!(f, "invalid mix: {e}"),
+            Self::WorkerLevelTooShort { level_frames, host_period_frames } => write!(
+                f,
+                "a workers level of {level_frames} frames is shorter than twice the host period of \
+                 {host_period_frames} frames, so its results would be late; plan with the same host period \
+                 (Planner::host_period_frames), which keeps such levels in the callback"
+            ),
         }
     }
 }

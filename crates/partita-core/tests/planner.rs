@@ -255,3 +255,40 @@ fn small_levels_stay_in_the_callback_under_workers() {
         Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0).plan(480_000).unwrap();
     assert_eq!(default, explicit);
 }
+
+/// The host period keeps short levels off the workers: with calls of 1024 frames at block 64, every
+/// `workers` level is at least 2048 frames and the shorter ones run `sync` (a job released in one call
+/// must be collected at least two calls later). Without a host period (one block) the S1 plan keeps worker
+/// levels shorter than that. The engine refuses a plan that breaks the rule for the period it is told,
+/// and says what to do.
+#[test]
+fn the_host_period_keeps_short_levels_off_the_workers() {
+    use partita_core::{Engine, EngineError, EngineOptions, ImpulseResponse, Routing};
+    let planner = Planner::new().block_frames(64).schedule(Schedule::Workers);
+    let per_block = planner.clone().plan(480_000).unwrap();
+    let workers = |p: &Plan| -> Vec<usize> {
+        p.levels.iter().filter(|l| l.schedule == Schedule::Workers).map(|l| l.block_frames).collect()
+    };
+    assert!(workers(&per_block).iter().any(|&n| n < 2048), "{:?}", per_block.levels);
+    let long_calls = planner.host_period_frames(1024).plan(480_000).unwrap();
+    assert!(
+        !workers(&long_calls).is_empty() && workers(&long_calls).iter().all(|&n| n >= 2048),
+        "{:?}",
+        long_calls.levels
+    );
+    assert!(
+        long_calls.levels.iter().any(|l| l.schedule == Schedule::Sync && l.block_frames > 64),
+        "{:?}",
+        long_calls.levels
+    );
+
+    let ir = ImpulseResponse::new(vec![vec![0.5; 48_000]], 48_000).unwrap();
+    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(48_000).unwrap();
+    let smallest = *workers(&plan).iter().min().unwrap();
+    let options = EngineOptions { host_period_frames: Some(smallest), ..EngineOptions::new(smallest) };
+    let err = Engine::with_options(&plan, &ir, Routing::Mono, options).unwrap_err();
+    assert_eq!(err, EngineError::WorkerLevelTooShort { level_frames: smallest, host_period_frames: smallest });
+    assert!(err.to_string().contains("host_period_frames"), "{err}");
+    let options = EngineOptions { host_period_frames: Some(smallest / 2), ..EngineOptions::new(smallest) };
+    assert!(Engine::with_options(&plan, &ir, Routing::Mono, options).is_ok(), "exactly twice the period is enough");
+}

@@ -21,6 +21,7 @@ use crate::level::fdl::{LevelIo, LevelRunner};
 use crate::level::sliced::SlicedLevel;
 use crate::level::workers::{WorkerLevel, WorkerSetup};
 use crate::level::{LevelSlot, WorkerCounts};
+use crate::plan::planner::min_worker_level_frames;
 use crate::plan::{Plan, Schedule};
 use crate::prepared::{LevelSpec, SpectraRecipe};
 use crate::ring::{Sanitized, TimeRing};
@@ -122,6 +123,14 @@ impl Engine {
         }
         let routes = routing.resolve(ir.channels())?;
         options.mix.check(routes.inputs, routes.outputs, options.max_predelay_frames)?;
+        let min_worker = min_worker_level_frames(plan.block_frames, options.host_period_frames);
+        if let Some(level) = plan.levels.iter().find(|l| l.schedule == Schedule::Workers && l.block_frames < min_worker)
+        {
+            return Err(EngineError::WorkerLevelTooShort {
+                level_frames: level.block_frames,
+                host_period_frames: options.host_period_frames.unwrap_or(plan.block_frames),
+            });
+        }
         let b = plan.block_frames;
         let latency = plan.latency_frames();
 
@@ -508,6 +517,12 @@ impl Engine {
     /// Largest host call accepted.
     pub fn max_host_frames(&self) -> usize {
         self.options.max_host_frames
+    }
+
+    /// Frames per host call the engine was built for ([`EngineOptions::host_period_frames`]; one block when
+    /// not given).
+    pub fn host_period_frames(&self) -> usize {
+        self.options.host_period_frames.unwrap_or(self.plan.block_frames)
     }
 
     /// Number of input buffers `process()` takes.

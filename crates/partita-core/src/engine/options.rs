@@ -21,6 +21,13 @@ pub struct EngineOptions {
     /// The longest pre-delay [`Command::PreDelayFrames`](crate::Command::PreDelayFrames) may ask for; 0 (none) by default. Costs
     /// 4 bytes per frame and output.
     pub max_predelay_frames: usize,
+    /// Frames per host call when the host calls with more than one engine block at a time (an audio
+    /// driver's period, a game engine's mix buffer); `None` (the default) means calls of at most one
+    /// block. Every `workers` level must be at least twice as long, or the engine refuses the plan: plan
+    /// with the same figure ([`Planner::host_period_frames`](crate::Planner::host_period_frames)), which
+    /// explains the rule. Calls longer than this make worker results late (counted in
+    /// [`Monitor::late_results`](crate::Monitor::late_results)).
+    pub host_period_frames: Option<usize>,
     /// The mix the stream starts with, without a ramp (wet 1, dry 0, 0 dB, no pre-delay, no bypass by
     /// default). Its pre-delay must be within `max_predelay_frames`.
     pub mix: Mix,
@@ -35,6 +42,7 @@ impl EngineOptions {
             realtime_workers: false,
             lateness: Lateness::default(),
             max_predelay_frames: 0,
+            host_period_frames: None,
             mix: Mix::default(),
         }
     }

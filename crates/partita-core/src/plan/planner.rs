@@ -36,12 +36,19 @@ pub struct Planner {
     max_level_frames: usize,
     min_sliced_frames: usize,
     min_worker_frames: usize,
+    host_period_frames: Option<usize>,
 }
 
 impl Default for Planner {
     fn default() -> Self {
         Self::new()
     }
+}
+
+/// The smallest `workers` level for host calls of `host_period_frames` (one block when `None`): `2H`, so a
+/// job released in one call is collected at least two calls later (see [`Planner::host_period_frames`]).
+pub(crate) fn min_worker_level_frames(block_frames: usize, host_period_frames: Option<usize>) -> usize {
+    2 * host_period_frames.unwrap_or(block_frames).max(block_frames)
 }
 
 impl Planner {
@@ -58,6 +65,7 @@ impl Planner {
             max_level_frames: 1 << 16,
             min_sliced_frames: 2048,
             min_worker_frames: 0,
+            host_period_frames: None,
         }
     }
 
@@ -132,6 +140,25 @@ impl Planner {
         self
     }
 
+    /// The number of frames the host passes per call (its period), when it is more than one engine block:
+    /// an audio driver's period, a game engine's mix buffer. Default: one engine block.
+    ///
+    /// A `workers` level's job is released at the block boundary that completes its input and collected
+    /// at the boundary N frames later. When one host call spans several blocks, both can fall inside the
+    /// same call, microseconds apart, and the job is late whatever the worker does. With calls of H frames
+    /// arriving every H frames of real time, a job released in one call is collected at least
+    /// `floor(N / H)` calls later, so the worker has at least `floor(N / H) x H >= N - H + 1` frames of
+    /// real time; the planner therefore keeps levels with `N < 2H` off the workers (they run `sync`),
+    /// which leaves every worker at least half its period. [`Engine`](crate::Engine) refuses a plan that
+    /// breaks this rule for the host period it is told ([`EngineOptions::host_period_frames`]).
+    ///
+    /// [`EngineOptions::host_period_frames`]: crate::EngineOptions::host_period_frames
+    #[must_use = "a builder method returns the changed planner"]
+    pub fn host_period_frames(mut self, frames: usize) -> Self {
+        self.host_period_frames = Some(frames);
+        self
+    }
+
     /// The cost model in use.
     pub fn model(&self) -> &CostModel {
         &self.model
@@ -141,7 +168,12 @@ impl Planner {
         match self.schedule {
             _ if level_block_frames == self.block_frames => Schedule::Sync,
             Schedule::Sliced if level_block_frames < self.min_sliced_frames => Schedule::Sync,
-            Schedule::Workers if level_block_frames < self.min_worker_frames => Schedule::Sync,
+            Schedule::Workers
+                if level_block_frames < self.min_worker_frames
+                    || level_block_frames < min_worker_level_frames(self.block_frames, self.host_period_frames) =>
+            {
+                Schedule::Sync
+            }
             s => s,
         }
     }
