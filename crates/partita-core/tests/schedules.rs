@@ -157,3 +157,30 @@ fn sliced_work_per_callback_stays_near_the_mean() {
     assert!(max <= 3.0 * mean, "max {max} vs mean {mean} cost units per callback");
     eprintln!("sliced S1: max/mean cost per callback {:.2} ({max} / {mean:.0})", max / mean);
 }
+
+/// An offline host (calls back to back, much faster than real time) with a `workers` plan: with the
+/// default options, results come late and are dropped (the lateness policy of a live stream); with
+/// `EngineOptions::offline` they are waited for, none is late, and the output is the convolution
+/// (oracle, design bound).
+#[test]
+fn offline_mode_waits_for_workers_so_a_fast_host_drops_nothing() {
+    use partita_core::{Engine, EngineOptions, Planner, Routing, Schedule};
+    let ir = support::random_ir(2, 24_000, 91);
+    let input = support::random_input(2, 48_000, 92);
+    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(ir.frames()).unwrap();
+    assert!(plan.levels.iter().any(|l| l.schedule == Schedule::Workers), "{plan:?}");
+    let total = 48_000 + ir.frames() + 64;
+    let want = support::oracle(&input, &ir, Routing::Stereo, 64, total);
+
+    let mut live = Engine::with_options(&plan, &ir, Routing::Stereo, EngineOptions::new(1024)).unwrap();
+    support::stream(&mut live, &input, total, || 1024);
+    assert!(live.monitor().late_results() > 0, "a live-policy engine driven faster than real time drops results");
+
+    let options = EngineOptions { offline: true, ..EngineOptions::new(1024) };
+    let mut offline = Engine::with_options(&plan, &ir, Routing::Stereo, options).unwrap();
+    let got = support::stream(&mut offline, &input, total, || 1024);
+    assert_eq!(offline.monitor().late_results(), 0);
+    for c in 0..2 {
+        partita_testkit::ErrorBound::measure(&got[c], &want[c]).assert_design_bound(&format!("offline, output {c}"));
+    }
+}

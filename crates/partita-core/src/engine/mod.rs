@@ -19,7 +19,7 @@ use crate::ir::ImpulseResponse;
 use crate::kernel::Kernel;
 use crate::level::fdl::{LevelIo, LevelRunner};
 use crate::level::sliced::SlicedLevel;
-use crate::level::workers::{WorkerLevel, WorkerSetup};
+use crate::level::workers::{Lateness, WorkerLevel, WorkerSetup};
 use crate::level::{LevelSlot, WorkerCounts};
 use crate::plan::planner::min_worker_level_frames;
 use crate::plan::{Plan, Schedule};
@@ -180,7 +180,7 @@ impl Engine {
                         kernel: options.kernel,
                         priority: options.realtime_workers.then_some(10 + rank as i32),
                         name_index: slot.level,
-                        lateness: options.lateness,
+                        lateness: if options.offline { Lateness::Wait } else { options.lateness },
                     };
                     LevelSlot::Workers(
                         WorkerLevel::spawn(runner, setup).map_err(|e| EngineError::Spawn(e.to_string()))?,

@@ -21,6 +21,12 @@ pub struct EngineOptions {
     /// The longest pre-delay [`Command::PreDelayFrames`](crate::Command::PreDelayFrames) may ask for; 0 (none) by default. Costs
     /// 4 bytes per frame and output.
     pub max_predelay_frames: usize,
+    /// For hosts that run faster than real time (an offline bounce, JACK freewheel, a batch job): worker
+    /// results are waited for, whatever [`lateness`](Self::lateness) says, so nothing is dropped because
+    /// calls come sooner than the wall clock would bring them. Off by default. Never on a live stream: a
+    /// callback that waits for a worker can miss its deadline. (Plans without worker levels, which the
+    /// offline render uses, need no waiting at all.)
+    pub offline: bool,
     /// Frames per host call when the host calls with more than one engine block at a time (an audio
     /// driver's period, a game engine's mix buffer); `None` (the default) means calls of at most one
     /// block. Every `workers` level must be at least twice as long, or the engine refuses the plan: plan
@@ -43,6 +49,7 @@ impl EngineOptions {
             lateness: Lateness::default(),
             max_predelay_frames: 0,
             host_period_frames: None,
+            offline: false,
             mix: Mix::default(),
         }
     }
