@@ -179,6 +179,10 @@ fn host_period_keeps_worker_levels_at_least_two_periods_long() {
         "1",
     ]);
     assert_eq!(v["host_period_frames"], 1024);
+    // The predicted heaviest call is reported beside the measured heaviest position.
+    let predicted = v["predicted_heaviest_call_pct"].as_f64().unwrap();
+    assert!(predicted > 0.0 && predicted.is_finite(), "{v}");
+    assert!(v["worst_phase_median_pct"].as_f64().is_some(), "{v}");
     let levels = v["levels"].as_array().unwrap();
     let workers: Vec<u64> =
         levels.iter().filter(|l| l["schedule"] == "workers").map(|l| l["block_frames"].as_u64().unwrap()).collect();

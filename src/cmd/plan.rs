@@ -182,14 +182,16 @@ pub fn run(args: PlanArgs) -> CmdResult {
     };
 
     let uniform = Plan::uniform(plan.block_frames, ir_frames)?;
+    let call_frames = args.host_period.unwrap_or(plan.block_frames);
+    let groups = map.groups().iter().filter(|(i, o)| !i.is_empty() && !o.is_empty()).count();
     let direct_flops = 2.0 * ir_frames as f64;
     let rate_f = f64::from(rate);
     let predicted = model.load_pct(&plan, shape, rate_f);
+    let predicted_heaviest = model.heaviest_call_pct(&plan, shape, groups, rate_f, call_frames);
 
     // Build the engine: it gives the exact memory figure, and --measure runs it.
     let taps = partita_core::synth::decaying_noise(ir_frames, (ir_frames as f64 / 2.0).max(1.0), 1);
     let ir = ImpulseResponse::new(vec![taps; routing.ir_channels()], rate)?;
-    let call_frames = args.host_period.unwrap_or(plan.block_frames);
     let options = partita_core::EngineOptions {
         realtime_workers: args.realtime_workers,
         host_period_frames: args.host_period,
@@ -224,6 +226,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
             "direct_flops_per_sample": direct_flops,
             "cost_model": args.model,
             "predicted_load_pct": predicted,
+            "predicted_heaviest_call_pct": predicted_heaviest,
             "memory_bytes": memory,
         });
         if let Some(why) = &reason {
@@ -276,6 +279,11 @@ pub fn run(args: PlanArgs) -> CmdResult {
         direct_flops
     );
     println!("predicted    {predicted:.3}% of one core ({} model, all paths)", args.model);
+    println!(
+        "             heaviest call {predicted_heaviest:.1}% of the {:.3} ms deadline (paced host; docs/DESIGN.md \
+         section 5, R3)",
+        ms(call_frames)
+    );
     println!("memory       {:.1} MB", memory as f64 / 1e6);
     if let Some(h) = args.host_period {
         println!("host period  {h} frames per call ({:.3} ms): worker levels are at least {} frames", ms(h), 2 * h);
@@ -307,7 +315,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         );
         println!(
             "             heaviest position in the {}-callback period of the largest level: {:.1}% of the deadline \
-             (median over the run)",
+             (median over the run; predicted {predicted_heaviest:.1}%)",
             m.phase_calls, m.worst_phase_median_pct
         );
     }

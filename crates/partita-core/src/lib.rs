@@ -53,7 +53,9 @@ pub use error::{
 pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
 pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};
-pub use plan::cost::{CostModel, MachineCosts, Shape};
+pub use plan::cost::{
+    CostModel, MachineCosts, Shape, COPY_SECONDS_PER_SAMPLE, PACED_FACTOR, SLICED_OVERHEAD, SLICE_SECONDS, WAKE_SECONDS,
+};
 pub use plan::planner::{PlanMode, Planner};
 pub use plan::{Level, Plan, Schedule};
 pub use platform::{process_cpu_seconds, thread_cpu_seconds};

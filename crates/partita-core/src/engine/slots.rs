@@ -11,7 +11,7 @@
 //! - Groups without a path (an unused input or output of a matrix) get no slot.
 
 use crate::level::fdl::{LevelShape, OutputTerms};
-use crate::plan::{Plan, Schedule};
+use crate::plan::{slot_phase_blocks, Plan, Schedule};
 use crate::routing::RouteMap;
 
 /// One level runner to build: a plan level for one routing group (or all of them).
@@ -101,7 +101,7 @@ impl SlotLayout {
                 let period_blocks = (n / b) as u64;
                 // Stagger: level li of group gi completes its input at a different block phase from its
                 // neighbours, so big levels of different groups do not share a callback.
-                let phase_blocks = ((li * group_count + gi) as u64) % period_blocks;
+                let phase_blocks = slot_phase_blocks(li, gi, group_count, period_blocks);
                 slots.push(SlotSpec {
                     level: li,
                     inputs: g_inputs.clone(),

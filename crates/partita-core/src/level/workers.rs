@@ -460,7 +460,7 @@ impl Drop for WorkerLevel {
 
 /// The transfer chunk for a level of block `n` in an engine of block `b`: the largest multiple of `b`
 /// that divides `n` and is at most [`TRANSFER_FRAMES`] (`b` itself when `b` is larger).
-fn transfer_chunk(n: usize, b: usize) -> usize {
+pub(crate) fn transfer_chunk(n: usize, b: usize) -> usize {
     let period = n / b;
     let most = (TRANSFER_FRAMES / b).clamp(1, period);
     (1..=most).rev().find(|k| period.is_multiple_of(*k)).unwrap_or(1) * b

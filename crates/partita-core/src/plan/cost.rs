@@ -8,7 +8,8 @@ use realfft::RealFftPlanner;
 use serde::{Deserialize, Serialize};
 
 use crate::kernel::Kernel;
-use crate::plan::Plan;
+use crate::level::workers::transfer_chunk;
+use crate::plan::{Plan, Schedule};
 
 /// How many inputs, outputs and (input, IR) paths an engine has; costs scale with them (forward FFTs per
 /// input, inverse FFTs per output, multiply-accumulates and head taps per path).
@@ -49,6 +50,42 @@ pub struct MachineCosts {
     pub head_seconds_per_tap: f64,
     /// Name of the kernel measured.
     pub kernel: String,
+}
+
+/// How much more a callback's compute costs on a live, paced stream than back to back with warm caches (what
+/// calibration measures): between callbacks the engine's data leaves the cache. The same engines measured
+/// paced and back to back differ 2-3x on the project's shared VMs (`partita plan --measure --pacing sleep`
+/// against `--pacing none`, docs/benchmarks/log.md); 2 keeps the model an upper bound within 3x on the
+/// latency grid (docs/benchmarks/latency.md).
+pub const PACED_FACTOR: f64 = 2.0;
+
+/// What a `sliced` level's share of work costs against the same work in one piece: its FFTs are four-step
+/// sub-transforms, every step is bookkept, and a boundary cannot do less than one step. Fitted to the
+/// heaviest-phase medians of sliced plans on the latency grid (docs/benchmarks/latency.md).
+pub const SLICED_OVERHEAD: f64 = 4.0;
+
+/// What waking a worker thread costs the callback that releases its job (a futex wake through
+/// `Thread::unpark`), paced. Calibrated on the project's 2-vCPU VMs against the heaviest-phase median of
+/// `workers` plans (docs/benchmarks/log.md); a judgement for other machines.
+pub const WAKE_SECONDS: f64 = 20e-6;
+
+/// What a `sliced` level's share costs the callback beyond its arithmetic at each boundary, paced: its step
+/// list and buffers are cold. Fitted to the heaviest-phase medians of sliced plans on the latency grid
+/// (docs/benchmarks/latency.md), a judgement for other machines.
+pub const SLICE_SECONDS: f64 = 5e-6;
+
+/// What moving one sample between the audio thread's rings and a worker's hand-off slot costs the
+/// callback, paced (the slots are cold): a judgement of a few cache misses per 64-byte line, not a
+/// measurement.
+pub const COPY_SECONDS_PER_SAMPLE: f64 = 1e-9;
+
+/// Least common multiple (periods in blocks).
+fn lcm(a: u64, b: u64) -> u64 {
+    let (mut x, mut y) = (a, b);
+    while y != 0 {
+        (x, y) = (y, x % y);
+    }
+    a / x.max(1) * b
 }
 
 /// What the planner minimises.
@@ -126,14 +163,109 @@ impl CostModel {
                 .sum::<f64>()
     }
 
+    /// Seconds per unit of this model: 1 for the measured model, `1 / flops_per_second` for the flop model.
+    fn seconds_per_unit(&self) -> f64 {
+        match self {
+            Self::Flops { flops_per_second } => 1.0 / flops_per_second,
+            Self::Measured(_) => 1.0,
+        }
+    }
+
+    /// The predicted heaviest host call of `plan`, with calls of `host_frames` frames on a routing of
+    /// `groups` independent groups (plain stereo 2, true stereo 1; see [`RouteMap::groups`]), in percent
+    /// of the call's deadline (`host_frames / sample_rate_hz`) as a paced, live host sees it. Built from
+    /// the per-operation costs of [`load_pct`](Self::load_pct), for every position of the call on the
+    /// engine's block grid:
+    ///
+    /// - a call crosses `ceil(H / B)` consecutive block boundaries (one more when `H` is not a multiple of
+    ///   `B`);
+    /// - a `sync` level runs one job per routing group, each at its staggered phase (the engine's slot
+    ///   layout), costing its FFT pair and multiply-accumulates;
+    /// - a `sliced` level does `1 / period` of its job at every boundary, at [`SLICED_OVERHEAD`] times the
+    ///   cost of the same work in one piece;
+    /// - a `workers` level costs the callback a wake-up of its thread at each release
+    ///   ([`WAKE_SECONDS`]) and its hand-off copies, counted as nothing;
+    /// - the direct-form head costs its taps on every frame;
+    /// - compute is multiplied by [`PACED_FACTOR`]: calibrated costs come from back-to-back runs with warm
+    ///   caches, a live callback finds them cold after the gap since the previous one.
+    ///
+    /// The heaviest position is the maximum over one hyperperiod of the levels' periods.
+    ///
+    /// [`RouteMap::groups`]: crate::RouteMap::groups
+    pub fn heaviest_call_pct(
+        &self,
+        plan: &Plan,
+        shape: Shape,
+        groups: usize,
+        sample_rate_hz: f64,
+        host_frames: usize,
+    ) -> f64 {
+        let b = plan.block_frames.max(1);
+        let h = host_frames.max(1);
+        let boundaries = (h.div_ceil(b) + usize::from(!h.is_multiple_of(b))) as u64;
+        let groups = groups.max(1);
+        let job =
+            |n: usize, p: usize| n as f64 * (self.level_cost(n, shape) + p as f64 * self.partition_cost(n, shape));
+        // Work every call carries whatever its position: the head, and the sliced levels' even shares.
+        let mut steady = self.head_tap_per_frame(shape) * plan.head_frames as f64 * h as f64;
+        // Work at given phases: (period in blocks, phase, model units, wake-ups).
+        let mut phased: Vec<(u64, u64, f64, f64)> = Vec::new();
+        for (li, level) in plan.levels.iter().enumerate() {
+            let period = (level.block_frames / b).max(1) as u64;
+            match level.schedule {
+                Schedule::Sync => {
+                    let per_group = job(level.block_frames, level.partitions) / groups as f64;
+                    for g in 0..groups {
+                        phased.push((period, super::slot_phase_blocks(li, g, groups, period), per_group, 0.0));
+                    }
+                }
+                Schedule::Sliced => {
+                    steady +=
+                        SLICED_OVERHEAD * job(level.block_frames, level.partitions) * boundaries as f64 / period as f64;
+                    // Its state is cold at every boundary: a fixed cost per step taken; and around its release
+                    // it copies the input window (2N frames per input), counted at the release.
+                    phased.push((1, 0, 0.0, SLICE_SECONDS / WAKE_SECONDS));
+                    let window = (2 * level.block_frames * shape.inputs) as f64;
+                    let phase = super::slot_phase_blocks(li, 0, 1, period);
+                    phased.push((period, phase, 0.0, window * COPY_SECONDS_PER_SAMPLE / WAKE_SECONDS));
+                }
+                Schedule::Workers => {
+                    let phase = super::slot_phase_blocks(li, 0, 1, period);
+                    phased.push((period, phase, 0.0, 1.0));
+                    // Hand-off copies at the end of each transfer chunk: a chunk of input in, one of the
+                    // result out (per input and output).
+                    let chunk = transfer_chunk(level.block_frames, b);
+                    let chunk_blocks = (chunk / b).max(1) as u64;
+                    let samples = (chunk * (shape.inputs + shape.outputs)) as f64;
+                    phased.push((
+                        chunk_blocks,
+                        phase % chunk_blocks,
+                        0.0,
+                        samples * COPY_SECONDS_PER_SAMPLE / WAKE_SECONDS,
+                    ));
+                }
+            }
+        }
+        let hyper = phased.iter().fold(1u64, |l, &(p, ..)| lcm(l, p));
+        let mut worst = 0.0f64;
+        for start in 0..hyper {
+            let (mut units, mut wakes) = (0.0, 0.0);
+            for &(period, phase, cost, wake) in &phased {
+                // Boundaries start..start + boundaries at which this slot completes.
+                let first = (phase + period - start % period) % period;
+                let hits = if first < boundaries { (boundaries - 1 - first) / period + 1 } else { 0 };
+                units += hits as f64 * cost;
+                wakes += hits as f64 * wake;
+            }
+            worst = worst.max(units * PACED_FACTOR + wakes * WAKE_SECONDS / self.seconds_per_unit());
+        }
+        let deadline = h as f64 / sample_rate_hz;
+        100.0 * (worst + steady * PACED_FACTOR) * self.seconds_per_unit() / deadline
+    }
+
     /// Predicted load in percent of one core at `sample_rate_hz`.
     pub fn load_pct(&self, plan: &Plan, shape: Shape, sample_rate_hz: f64) -> f64 {
-        let per_frame = self.plan_cost(plan, shape);
-        let seconds_per_frame = match self {
-            Self::Flops { flops_per_second } => per_frame / flops_per_second,
-            Self::Measured(_) => per_frame,
-        };
-        100.0 * seconds_per_frame * sample_rate_hz
+        100.0 * self.plan_cost(plan, shape) * self.seconds_per_unit() * sample_rate_hz
     }
 }
 
@@ -228,4 +360,54 @@ fn time_mac(kernel: Kernel, bins: usize, parts: usize, reps: usize) -> f64 {
     let s = t0.elapsed().as_secs_f64() / (reps * parts * bins) as f64;
     std::hint::black_box(&acc_re);
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::plan::Level;
+
+    const RATE: f64 = 48_000.0;
+
+    /// A uniform plan of 64 x 10 under the flop model, by hand: FFT pair 5 log2(128) x (1 + 1) = 70 flops per
+    /// frame, a partition 8 x 65 / 64 = 8.125, so one block's job is 64 x (70 + 81.25) = 9680 flops, twice
+    /// that paced, at 24 GFLOP/s: 0.8067 us against a 1.3333 ms deadline, 0.0605%.
+    #[test]
+    fn heaviest_call_of_a_uniform_plan_by_hand() {
+        let model = CostModel::default();
+        let plan = Plan::uniform(64, 640).unwrap();
+        let one = 100.0 * PACED_FACTOR * 9680.0 / 24e9 / (64.0 / RATE);
+        let got = model.heaviest_call_pct(&plan, Shape::MONO, 1, RATE, 64);
+        assert!((got - one).abs() < 1e-9 * one.max(1.0), "{got} against {one}");
+        // Calls of 4 blocks cross 4 boundaries: 4 jobs in 4 times the deadline.
+        assert!((model.heaviest_call_pct(&plan, Shape::MONO, 1, RATE, 256) - one).abs() < 1e-9);
+        // 100 frames (not a multiple of 64) can cross 3 boundaries: 3 jobs in 100 frames.
+        let hundred = 100.0 * PACED_FACTOR * 3.0 * 9680.0 / 24e9 / (100.0 / RATE);
+        assert!((model.heaviest_call_pct(&plan, Shape::MONO, 1, RATE, 100) - hundred).abs() < 1e-9);
+    }
+
+    /// A big level costs the callback its whole job when `sync`, about 1/period of it (with overheads)
+    /// when `sliced`, and only a wake-up and hand-off copies when on a worker; and with two routing groups
+    /// the engine staggers them, so a call carries one group's job, not both.
+    #[test]
+    fn heaviest_call_follows_the_schedule_and_the_stagger() {
+        let model = CostModel::default();
+        let plan = |schedule| Plan {
+            block_frames: 64,
+            zero_latency: false,
+            head_frames: 0,
+            levels: vec![
+                Level { block_frames: 64, partitions: 64, offset_frames: 0, schedule: Schedule::Sync },
+                Level { block_frames: 4096, partitions: 8, offset_frames: 4096, schedule },
+            ],
+            ir_frames: 4096 * 9,
+        };
+        let stereo = Shape { inputs: 2, outputs: 2, paths: 2 };
+        let [sync, sliced, workers] = [Schedule::Sync, Schedule::Sliced, Schedule::Workers]
+            .map(|s| model.heaviest_call_pct(&plan(s), stereo, 2, RATE, 64));
+        assert!(sync > 2.0 * sliced && sliced > workers, "sync {sync}, sliced {sliced}, workers {workers}");
+        // One group per call: the two-group figure is about half the one-group figure for the big level.
+        let one_group = model.heaviest_call_pct(&plan(Schedule::Sync), stereo, 1, RATE, 64);
+        assert!(one_group > 1.6 * sync && one_group < 2.0 * sync, "{one_group} against {sync}");
+    }
 }

@@ -6,6 +6,13 @@ use serde::{Deserialize, Serialize};
 use crate::error::PlanError;
 
 pub(crate) mod cost;
+
+/// The block phase (0..period) at which slot `group` of level `level_index` completes its input, when the
+/// level runs as `groups` separate slots: levels and groups are staggered so that big levels of different
+/// groups do not complete in the same callback. The engine's slot layout and the worst-call model use it.
+pub(crate) fn slot_phase_blocks(level_index: usize, group: usize, groups: usize, period_blocks: u64) -> u64 {
+    ((level_index * groups + group) as u64) % period_blocks.max(1)
+}
 pub(crate) mod offline;
 pub(crate) mod planner;
 
