@@ -78,6 +78,8 @@ struct Run {
     ports: u32,
     /// 50 ms windows exact at `lag`, of all windows (both channels).
     exact: (usize, usize),
+    /// Windows exact at their own best lag within two periods of `lag` (a glitch may move the lag).
+    exact_relagged: usize,
     /// Glitches the run itself counted: server xruns plus Partita's overruns.
     glitches: u64,
 }
@@ -112,7 +114,10 @@ fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
     assert!(stats.output_callbacks as f64 > 0.8 * stats.seconds * f64::from(RATE) / period, "{stats:?}");
     assert_eq!(stats.drift_corrections(), 0, "one clock: no drift corrections: {stats:?}");
     let mut lags = Vec::new();
-    let (mut good, mut total) = (0, 0);
+    let (mut good, mut total, mut good_relagged) = (0, 0, 0);
+    // After a glitch the bridge re-primes its ring, which can move the lag by a period or two: the windows
+    // are also judged each at its own best lag within two periods (used only for runs with counted glitches).
+    let slack = 2 * stats.output_period_frames as usize;
     for c in 0..2 {
         assert!(rec[c].len() >= start + len + 4800, "recorded only {} frames", rec[c].len());
         let want = expected(&signal[c], start, &taps[c]);
@@ -125,6 +130,8 @@ fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
             let w1 = (w0 + 2400).min(start + lag + len + 4799);
             let (_, b) = best_lag(&rec[c], &want, w0..w1, lag..lag + 1);
             total += 1;
+            let (_, relagged) = best_lag(&rec[c], &want, w0..w1, lag.saturating_sub(slack)..lag + slack + 1);
+            good_relagged += usize::from(relagged.within_design_bound());
             if b.within_design_bound() {
                 good += 1;
             } else {
@@ -141,12 +148,21 @@ fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
          reported {reported:.1} frames ({:.3} ms; min {:.3}, max {:.3}); {good} of {total} windows exact",
         lags[0], stats.latency_ms, stats.latency_min_ms, stats.latency_max_ms
     );
-    Run { lag: lags[0], reported, ports, exact: (good, total), glitches: stats.host_xruns + stats.overruns() }
+    Run {
+        lag: lags[0],
+        reported,
+        ports,
+        exact: (good, total),
+        exact_relagged: good_relagged,
+        glitches: stats.host_xruns + stats.overruns(),
+    }
 }
 
 /// Runs `end_to_end` and judges it: every window exact; or, when the run counted glitches (a
 /// non-real-time server on a busy machine misses cycles and reports xruns), once more, and then at
-/// least `min_exact` of the windows exact. Mismatches in a run without any counted glitch always fail.
+/// least `min_exact` of the windows exact, each at its own lag within two periods (an xrun re-primes the
+/// ring and may move the lag; between glitches the output must still be the exact convolution).
+/// Mismatches in a run without any counted glitch always fail.
 fn judged_end_to_end(side: EngineSide, schedule: Schedule, min_exact: f64) -> Run {
     let first = end_to_end(side, schedule);
     if first.clean() {
@@ -157,8 +173,13 @@ fn judged_end_to_end(side: EngineSide, schedule: Schedule, min_exact: f64) -> Ru
     let again = end_to_end(side, schedule);
     if !again.clean() {
         assert!(again.glitches > 0, "{side:?}: {:?} windows exact, yet no xrun or overrun was counted", again.exact);
-        let (good, total) = again.exact;
-        eprintln!("WARNING {side:?}: {good} of {total} windows exact with {} glitches counted", again.glitches);
+        let (fixed, total) = again.exact;
+        let good = again.exact_relagged;
+        eprintln!(
+            "WARNING {side:?}: {fixed} of {total} windows exact at one lag, {good} each at its own, with {} glitches \
+             counted",
+            again.glitches
+        );
         assert!(good >= 1 && good as f64 >= min_exact * total as f64, "{side:?}: only {good} of {total} windows exact");
     }
     again
