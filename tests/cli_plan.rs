@@ -195,3 +195,25 @@ fn host_period_keeps_worker_levels_at_least_two_periods_long() {
     assert_eq!(out.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--host-period"), "{}", String::from_utf8_lossy(&out.stderr));
 }
+
+/// `plan --schedule auto`: the planner picks the schedules; for S1 at block 64 under the flop model, the
+/// predicted heaviest call stays within the default 8% headroom (where the all-sync plan's does not), and a
+/// smaller `--headroom-pct` is honoured or, when nothing fits, the lightest plan is taken. An unknown
+/// schedule names the choices.
+#[test]
+fn schedule_auto_keeps_the_predicted_heaviest_call_within_the_headroom() {
+    let s1 = ["--ir-seconds", "10", "--channels", "2", "--block", "64"];
+    let sync = plan_json(&[&s1[..], &["--schedule", "sync"]].concat());
+    assert!(sync["predicted_heaviest_call_pct"].as_f64().unwrap() > 8.0, "{sync}");
+    let auto = plan_json(&[&s1[..], &["--schedule", "auto"]].concat());
+    assert!(auto["predicted_heaviest_call_pct"].as_f64().unwrap() <= 8.0, "{auto}");
+    assert!(auto["levels"].as_array().unwrap().iter().any(|l| l["schedule"] != "sync"), "{auto}");
+    let tight = plan_json(&[&s1[..], &["--schedule", "auto", "--headroom-pct", "5"]].concat());
+    assert!(tight["predicted_heaviest_call_pct"].as_f64().unwrap() <= 5.0, "{tight}");
+    let out = Command::new(env!("CARGO_BIN_EXE_partita"))
+        .args(["plan", "--ir-seconds", "1", "--schedule", "fast"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2), "clap refuses the value");
+    assert!(String::from_utf8_lossy(&out.stderr).contains("auto, sync, workers or sliced"));
+}

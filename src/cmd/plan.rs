@@ -36,9 +36,13 @@ pub struct PlanArgs {
     /// Routing: mono, mono-to-stereo, stereo, true-stereo or matrix:MxN [default: from the IR channels].
     #[arg(long = "routing", alias = "layout", value_name = "R")]
     routing: Option<Routing>,
-    /// Schedule of levels larger than the block: sync, workers or sliced.
+    /// Schedule of levels larger than the block: sync, workers, sliced, or auto (the cheapest plan whose
+    /// predicted heaviest call stays within --headroom-pct of the deadline).
     #[arg(long, default_value = "sync")]
-    schedule: Schedule,
+    schedule: ScheduleChoice,
+    /// With --schedule auto: the share of the call's deadline the predicted heaviest call may take.
+    #[arg(long, value_name = "PCT", default_value_t = 8.0)]
+    headroom_pct: f64,
     /// With --schedule workers: levels below this many frames stay in the callback (lower mean load,
     /// longer callbacks when such a level completes); 0 puts every level above the block on a worker.
     #[arg(long, value_name = "N", default_value_t = 0)]
@@ -154,12 +158,20 @@ pub fn run(args: PlanArgs) -> CmdResult {
     let planner = Planner::new()
         .block_frames(args.block.unwrap_or(64))
         .zero_latency(args.zero_latency)
-        .schedule(args.schedule)
         .min_worker_frames(args.min_worker_frames)
         .min_sliced_frames(args.min_sliced_frames)
         .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
         .cost_model(model.clone())
         .shape(shape);
+    let planner = match args.schedule {
+        ScheduleChoice::Fixed(s) => planner.schedule(s),
+        ScheduleChoice::Auto => {
+            if !(args.headroom_pct.is_finite() && args.headroom_pct > 0.0) {
+                return Err(format!("--headroom-pct must be a positive number, got {}", args.headroom_pct).into());
+            }
+            planner.auto(args.headroom_pct).sample_rate_hz(rate)
+        }
+    };
     if args.host_period == Some(0) {
         return Err("--host-period must be at least 1 frame".into());
     }
@@ -320,6 +332,27 @@ pub fn run(args: PlanArgs) -> CmdResult {
         );
     }
     Ok(())
+}
+
+/// `--schedule`: one schedule for every level above the block, or the planner's choice.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum ScheduleChoice {
+    Auto,
+    Fixed(Schedule),
+}
+
+impl std::str::FromStr for ScheduleChoice {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s {
+            "auto" => Ok(Self::Auto),
+            other => other
+                .parse()
+                .map(Self::Fixed)
+                .map_err(|_| format!("unknown schedule `{other}`; use auto, sync, workers or sliced")),
+        }
+    }
 }
 
 /// What each worker was granted, in words.

@@ -292,3 +292,35 @@ fn the_host_period_keeps_short_levels_off_the_workers() {
     let options = EngineOptions { host_period_frames: Some(smallest / 2), ..EngineOptions::new(smallest) };
     assert!(Engine::with_options(&plan, &ir, Routing::Mono, options).is_ok(), "exactly twice the period is enough");
 }
+
+/// `Planner::auto(headroom)`: with room to spare it keeps every level in the callback (the cheapest mean);
+/// with no room it takes the plan with the lightest predicted heaviest call; in between it never picks a
+/// plan whose predicted heaviest call exceeds the headroom when one of the single-schedule plans fits, and
+/// costs no more on the mean than any of them that fits. The same inputs give the same plan.
+#[test]
+fn auto_picks_the_cheapest_plan_within_the_headroom() {
+    let stereo = Shape { inputs: 2, outputs: 2, paths: 2 };
+    let base = Planner::new().block_frames(64).shape(stereo);
+    let model = base.model().clone();
+    let worst = |p: &Plan| model.heaviest_call_pct(p, stereo, stereo.groups(), 48_000.0, 64);
+    let mean = |p: &Plan| model.plan_cost(p, stereo);
+    let singles: Vec<Plan> = [Schedule::Sync, Schedule::Sliced, Schedule::Workers]
+        .map(|s| base.clone().schedule(s).plan(480_000).unwrap())
+        .into();
+
+    let roomy = base.clone().auto(1e9).plan(480_000).unwrap();
+    assert_eq!(roomy, singles[0], "with room to spare every level stays in the callback");
+
+    let none = base.clone().auto(0.0).plan(480_000).unwrap();
+    assert!(singles.iter().all(|p| worst(&none) <= worst(p)), "no room: the lightest heaviest call");
+
+    for headroom in [2.0, 8.0, 30.0] {
+        let auto = base.clone().auto(headroom).plan(480_000).unwrap();
+        assert_eq!(auto, base.clone().auto(headroom).plan(480_000).unwrap(), "deterministic");
+        let fitting: Vec<&Plan> = singles.iter().filter(|p| worst(p) <= headroom).collect();
+        if !fitting.is_empty() {
+            assert!(worst(&auto) <= headroom, "{headroom}%: predicted {} with a fitting single plan", worst(&auto));
+            assert!(fitting.iter().all(|p| mean(&auto) <= mean(p) + 1e-9), "{headroom}%: not the cheapest that fits");
+        }
+    }
+}

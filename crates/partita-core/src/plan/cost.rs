@@ -27,6 +27,17 @@ impl Shape {
     /// One input, one output, one path: the "mono cost" of DESIGN.md section 4.
     pub const MONO: Self = Self { inputs: 1, outputs: 1, paths: 1 };
 
+    /// Independent routing groups of the usual routings: a diagonal (as many paths as inputs and outputs:
+    /// mono, plain stereo) has one group per input; anything else (mono to stereo, true stereo, a full
+    /// matrix) is one group. The engine staggers groups to different phases.
+    pub fn groups(&self) -> usize {
+        if self.paths == self.inputs && self.inputs == self.outputs {
+            self.inputs.max(1)
+        } else {
+            1
+        }
+    }
+
     /// The shape of a resolved routing.
     pub fn of(map: &crate::RouteMap) -> Self {
         Self { inputs: map.inputs, outputs: map.outputs, paths: map.paths.len() }

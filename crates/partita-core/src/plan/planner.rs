@@ -37,6 +37,9 @@ pub struct Planner {
     min_sliced_frames: usize,
     min_worker_frames: usize,
     host_period_frames: Option<usize>,
+    /// `Some(headroom %)`: choose the schedules ([`auto`](Planner::auto)).
+    auto_headroom_pct: Option<f64>,
+    sample_rate_hz: f64,
 }
 
 impl Default for Planner {
@@ -66,6 +69,8 @@ impl Planner {
             min_sliced_frames: 2048,
             min_worker_frames: 0,
             host_period_frames: None,
+            auto_headroom_pct: None,
+            sample_rate_hz: 48_000.0,
         }
     }
 
@@ -159,6 +164,26 @@ impl Planner {
         self
     }
 
+    /// Chooses the schedules itself: among plans with every level in the callback (`sync`), and plans that
+    /// put the levels from a size on up on `sliced` or on `workers` (each size the optimal mode may use),
+    /// the one with the lowest mean cost whose predicted heaviest host call
+    /// ([`CostModel::heaviest_call_pct`]) stays within `headroom_pct` percent of the call's deadline; when
+    /// none does, the one with the lightest heaviest call. The host period and the sample rate set the
+    /// deadline ([`host_period_frames`](Self::host_period_frames), [`sample_rate_hz`](Self::sample_rate_hz)).
+    /// Deterministic: the same inputs give the same plan. Not the default yet.
+    #[must_use = "a builder method returns the changed planner"]
+    pub fn auto(mut self, headroom_pct: f64) -> Self {
+        self.auto_headroom_pct = Some(headroom_pct);
+        self
+    }
+
+    /// The stream's sample rate, for the deadlines [`auto`](Self::auto) plans against (default 48 kHz).
+    #[must_use = "a builder method returns the changed planner"]
+    pub fn sample_rate_hz(mut self, hz: u32) -> Self {
+        self.sample_rate_hz = f64::from(hz);
+        self
+    }
+
     /// The cost model in use.
     pub fn model(&self) -> &CostModel {
         &self.model
@@ -191,6 +216,40 @@ impl Planner {
     /// # Errors
     /// [`PlanError`] for a zero block or IR length.
     pub fn plan(&self, ir_frames: usize) -> Result<Plan, PlanError> {
+        match self.auto_headroom_pct {
+            Some(headroom) => self.plan_auto(ir_frames, headroom),
+            None => self.plan_fixed(ir_frames),
+        }
+    }
+
+    /// [`auto`](Self::auto): every candidate schedule set, judged by mean cost under the worst-call bound.
+    fn plan_auto(&self, ir_frames: usize, headroom_pct: f64) -> Result<Plan, PlanError> {
+        let fixed = Self { auto_headroom_pct: None, ..self.clone() };
+        let host = self.host_period_frames.unwrap_or(self.block_frames).max(1);
+        let mut candidates = vec![fixed.clone().schedule(Schedule::Sync)];
+        let mut size = 2 * self.block_frames;
+        while size <= self.max_level_frames {
+            candidates.push(fixed.clone().schedule(Schedule::Sliced).min_sliced_frames(size));
+            candidates.push(fixed.clone().schedule(Schedule::Workers).min_worker_frames(size));
+            size *= 2;
+        }
+        let mut within: Option<(f64, Plan)> = None;
+        let mut lightest: Option<(f64, Plan)> = None;
+        for planner in candidates {
+            let plan = planner.plan_fixed(ir_frames)?;
+            let mean = self.model.plan_cost(&plan, self.shape);
+            let worst = self.model.heaviest_call_pct(&plan, self.shape, self.shape.groups(), self.sample_rate_hz, host);
+            if worst <= headroom_pct && within.as_ref().is_none_or(|(m, _)| mean < *m) {
+                within = Some((mean, plan.clone()));
+            }
+            if lightest.as_ref().is_none_or(|(w, _)| worst < *w) {
+                lightest = Some((worst, plan));
+            }
+        }
+        within.or(lightest).map(|(_, plan)| plan).ok_or(PlanError::IrFramesZero)
+    }
+
+    fn plan_fixed(&self, ir_frames: usize) -> Result<Plan, PlanError> {
         let b = self.block_frames;
         if b == 0 {
             return Err(PlanError::BlockFramesZero);
