@@ -324,3 +324,19 @@ fn auto_picks_the_cheapest_plan_within_the_headroom() {
         }
     }
 }
+
+/// A latency budget under `auto`: the chosen block's plan has its predicted heaviest call within the
+/// headroom, and the reason says so; with no room at all, the reason says that nothing fits and the plan
+/// is the lightest.
+#[test]
+fn latency_budget_under_auto_keeps_the_heaviest_call_within_the_headroom() {
+    let stereo = Shape { inputs: 2, outputs: 2, paths: 2 };
+    let planner = Planner::new().shape(stereo).auto(8.0);
+    let (plan, why) = planner.plan_for_latency(144, 480_000).unwrap();
+    let host = plan.block_frames;
+    let worst = planner.model().heaviest_call_pct(&plan, stereo, stereo.groups(), 48_000.0, host);
+    assert!(worst <= 8.0, "{worst}% for {:?}", plan.levels);
+    assert!(plan.latency_frames() <= 144 && why.contains("8% headroom"), "{why}");
+    let (_, why) = Planner::new().shape(stereo).auto(0.0).plan_for_latency(144, 480_000).unwrap();
+    assert!(why.contains("no plan's predicted heaviest call fits"), "{why}");
+}

@@ -421,18 +421,35 @@ impl Planner {
 
     /// Chooses a block size and latency mode for a latency budget: every power-of-two block from 16 to
     /// 8192 frames whose block latency fits the budget, and zero-latency plans at blocks 16 to 512, are
-    /// planned; the one with the lowest predicted cost (the most CPU headroom) wins. Returns the plan and a
+    /// planned; the one with the lowest predicted cost (the most CPU headroom) wins. With
+    /// [`auto`](Self::auto), plans whose predicted heaviest call fits the headroom come first (the cheapest
+    /// of them wins; when none fits, the one with the lightest heaviest call). Returns the plan and a
     /// one-line reason.
     ///
     /// # Errors
     /// [`PlanError`] when the IR length is zero.
     pub fn plan_for_latency(&self, budget_frames: usize, ir_frames: usize) -> Result<(Plan, String), PlanError> {
-        let mut best: Option<(f64, Plan)> = None;
+        // (fits the headroom, rank: mean cost when it fits, heaviest call when it does not, heaviest, plan)
+        let mut best: Option<(bool, f64, f64, Plan)> = None;
         let mut consider = |planner: Planner| -> Result<(), PlanError> {
             let plan = planner.plan(ir_frames)?;
             let cost = planner.model.plan_cost(&plan, planner.shape);
-            if best.as_ref().is_none_or(|(c, _)| cost < *c) {
-                best = Some((cost, plan));
+            let host = planner.host_period_frames.unwrap_or(plan.block_frames);
+            let worst = planner.model.heaviest_call_pct(
+                &plan,
+                planner.shape,
+                planner.shape.groups(),
+                planner.sample_rate_hz,
+                host,
+            );
+            let fits = planner.auto_headroom_pct.is_none_or(|h| worst <= h);
+            let rank = if fits { cost } else { worst };
+            let better = match &best {
+                None => true,
+                Some((f, r, ..)) => (fits && !f) || (fits == *f && rank < *r),
+            };
+            if better {
+                best = Some((fits, rank, worst, plan));
             }
             Ok(())
         };
@@ -445,8 +462,8 @@ impl Planner {
         for k in 4..=9 {
             consider(self.clone().block_frames(1 << k).zero_latency(true))?;
         }
-        let (_, plan) = best.ok_or(PlanError::IrFramesZero)?;
-        let reason = if plan.zero_latency {
+        let (fits, _, worst, plan) = best.ok_or(PlanError::IrFramesZero)?;
+        let mut reason = if plan.zero_latency {
             format!(
                 "zero latency at block {}: no block-latency plan within {budget_frames} frames costs less",
                 plan.block_frames
@@ -458,6 +475,17 @@ impl Planner {
                 plan.latency_frames()
             )
         };
+        if let Some(headroom) = self.auto_headroom_pct {
+            reason = if fits {
+                format!("{reason} and whose predicted heaviest call ({worst:.1}%) fits the {headroom}% headroom")
+            } else {
+                format!(
+                    "no plan's predicted heaviest call fits the {headroom}% headroom; block {} has the lightest \
+                     ({worst:.1}% of its deadline)",
+                    plan.block_frames
+                )
+            };
+        }
         Ok((plan, reason))
     }
 }
