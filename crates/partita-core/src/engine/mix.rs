@@ -6,7 +6,7 @@
 //! Runs on the audio thread; [`OutputStage`] owns every buffer it touches.
 
 use crate::control::wire::{Command, PARAM_RAMP_SECONDS};
-use crate::engine::swap::IrPtr;
+use crate::engine::swap::{IrPtr, SwapRun};
 use crate::error::MixError;
 use crate::head::Head;
 use crate::ring::{prefaulted, TimeRing};
@@ -197,9 +197,10 @@ pub(crate) struct WetSources<'a> {
     pub(crate) head: Option<&'a mut Head>,
     pub(crate) inputs: &'a [TimeRing],
     pub(crate) irs: &'a [Option<IrPtr>; 2],
-    /// The IR slot heard, and the second one with its crossfade weight per frame while a swap fades.
+    /// The IR slot heard when no swap runs (the old one while a swap runs).
     pub(crate) first: usize,
-    pub(crate) second: Option<(usize, &'a dyn Fn(i64) -> f32)>,
+    /// The swap in progress: its new IR slot and crossfade weights.
+    pub(crate) fade: Option<SwapRun>,
     /// A reset is zeroing state: the wet signal is silent.
     pub(crate) sweeping: bool,
     /// A reset is running (fading, sweeping): the shortcut for default parameters does not apply.
@@ -374,7 +375,7 @@ impl OutputStage {
         emit: i64,
     ) -> f32 {
         let first = src.first;
-        if src.second.is_none() && !src.resetting && self.predelay.is_empty() && self.ramps.is_identity() {
+        if src.fade.is_none() && !src.resetting && self.predelay.is_empty() && self.ramps.is_identity() {
             // Default parameters, no swap, no pre-delay line to feed: the output is the wet signal itself.
             let mut peak = 0.0f32;
             for (o, y) in outputs.iter_mut().enumerate() {
@@ -400,7 +401,7 @@ impl OutputStage {
             return peak;
         }
         let mut head = src.head;
-        for slot in std::iter::once(first).chain(src.second.map(|(s, _)| s)) {
+        for slot in std::iter::once(first).chain(src.fade.map(|s| s.new)) {
             let wet = &mut self.wet[slot];
             for (ring, w) in src.acc[slot].iter_mut().zip(wet.iter_mut()) {
                 ring.take(emit, &mut w[..len]);
@@ -421,7 +422,7 @@ impl OutputStage {
             g_dry[j] = m.dry.next() * out;
             g_by[j] = m.bypass.next();
             g_pd[j] = m.pd_x.next();
-            g_w[j] = src.second.as_ref().map_or(0.0, |(_, weight)| weight(emit + j as i64));
+            g_w[j] = src.fade.map_or(0.0, |s| s.weight(emit + j as i64));
         }
         let (pd_from, pd_to) = (m.pd_from, m.pd_to);
         let mut peak = 0.0f32;
@@ -429,9 +430,9 @@ impl OutputStage {
             let y = &mut y[at..at + len];
             // The wet signal: one slot, or the crossfade of two.
             let a = &self.wet[first][o][..len];
-            match src.second {
-                Some((sn, _)) => {
-                    let bw = &self.wet[sn][o][..len];
+            match src.fade {
+                Some(s) => {
+                    let bw = &self.wet[s.new][o][..len];
                     for j in 0..len {
                         y[j] = (1.0 - g_w[j]) * a[j] + g_w[j] * bw[j];
                     }

@@ -301,16 +301,13 @@ impl Engine {
     /// Emits the next `len` output frames into `outputs[..][at..at + len]` through the output stage.
     fn emit_chunk(&mut self, outputs: &mut [&mut [f32]], at: usize, len: usize) -> f32 {
         let emit = self.now - self.latency as i64;
-        let (first, second) = self.irs.heard();
-        let run = self.irs.run;
-        let weight = move |f: i64| run.as_ref().map_or(0.0, |s| s.weight(f));
         let src = WetSources {
             acc: &mut self.acc,
             head: self.head.as_mut(),
             inputs: &self.inputs,
             irs: &self.irs.irs,
-            first,
-            second: second.map(|s| (s, &weight as &dyn Fn(i64) -> f32)),
+            first: self.irs.first_heard(),
+            fade: self.irs.run,
             sweeping: matches!(self.reset, Some(ResetPhase::Sweep { .. })),
             resetting: self.reset.is_some(),
         };

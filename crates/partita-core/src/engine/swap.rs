@@ -102,12 +102,9 @@ impl IrSlots {
         Self { irs: [Some(IrPtr::new(Box::new(first))), None], active: 0, run: None }
     }
 
-    /// The IR slot heard first, and the one fading in while a swap runs.
-    pub(crate) fn heard(&self) -> (usize, Option<usize>) {
-        match &self.run {
-            Some(s) => (s.old, Some(s.new)),
-            None => (self.active, None),
-        }
+    /// The IR slot heard alone when no swap runs, and the one fading out while a swap runs.
+    pub(crate) fn first_heard(&self) -> usize {
+        self.run.map_or(self.active, |s| s.old)
     }
 
     /// The IR slots a level release whose result starts at frame `start` and covers `n` frames must

@@ -219,7 +219,7 @@ impl CostModel {
             |n: usize, p: usize| n as f64 * (self.level_cost(n, shape) + p as f64 * self.partition_cost(n, shape));
         // Work every call carries whatever its position: the head, and the sliced levels' even shares.
         let mut steady = self.head_tap_per_frame(shape) * plan.head_frames as f64 * h as f64;
-        // Work at given phases: (period in blocks, phase, model units, wake-ups).
+        // Work at given phases: (period in blocks, phase, compute in model units, fixed seconds).
         let mut phased: Vec<(u64, u64, f64, f64)> = Vec::new();
         for (li, level) in plan.levels.iter().enumerate() {
             let period = (level.block_frames / b).max(1) as u64;
@@ -235,40 +235,35 @@ impl CostModel {
                         SLICED_OVERHEAD * job(level.block_frames, level.partitions) * boundaries as f64 / period as f64;
                     // Its state is cold at every boundary: a fixed cost per step taken; and around its release
                     // it copies the input window (2N frames per input), counted at the release.
-                    phased.push((1, 0, 0.0, SLICE_SECONDS / WAKE_SECONDS));
+                    phased.push((1, 0, 0.0, SLICE_SECONDS));
                     let window = (2 * level.block_frames * shape.inputs) as f64;
                     let phase = super::slot_phase_blocks(li, 0, 1, period);
-                    phased.push((period, phase, 0.0, window * COPY_SECONDS_PER_SAMPLE / WAKE_SECONDS));
+                    phased.push((period, phase, 0.0, window * COPY_SECONDS_PER_SAMPLE));
                 }
                 Schedule::Workers => {
                     let phase = super::slot_phase_blocks(li, 0, 1, period);
-                    phased.push((period, phase, 0.0, 1.0));
+                    phased.push((period, phase, 0.0, WAKE_SECONDS));
                     // Hand-off copies at the end of each transfer chunk: a chunk of input in, one of the
                     // result out (per input and output).
                     let chunk = transfer_chunk(level.block_frames, b);
                     let chunk_blocks = (chunk / b).max(1) as u64;
                     let samples = (chunk * (shape.inputs + shape.outputs)) as f64;
-                    phased.push((
-                        chunk_blocks,
-                        phase % chunk_blocks,
-                        0.0,
-                        samples * COPY_SECONDS_PER_SAMPLE / WAKE_SECONDS,
-                    ));
+                    phased.push((chunk_blocks, phase % chunk_blocks, 0.0, samples * COPY_SECONDS_PER_SAMPLE));
                 }
             }
         }
         let hyper = phased.iter().fold(1u64, |l, &(p, ..)| lcm(l, p));
         let mut worst = 0.0f64;
         for start in 0..hyper {
-            let (mut units, mut wakes) = (0.0, 0.0);
-            for &(period, phase, cost, wake) in &phased {
+            let (mut units, mut seconds) = (0.0, 0.0);
+            for &(period, phase, cost, fixed) in &phased {
                 // Boundaries start..start + boundaries at which this slot completes.
                 let first = (phase + period - start % period) % period;
                 let hits = if first < boundaries { (boundaries - 1 - first) / period + 1 } else { 0 };
                 units += hits as f64 * cost;
-                wakes += hits as f64 * wake;
+                seconds += hits as f64 * fixed;
             }
-            worst = worst.max(units * PACED_FACTOR + wakes * WAKE_SECONDS / self.seconds_per_unit());
+            worst = worst.max(units * PACED_FACTOR + seconds / self.seconds_per_unit());
         }
         let deadline = h as f64 / sample_rate_hz;
         100.0 * (worst + steady * PACED_FACTOR) * self.seconds_per_unit() / deadline
