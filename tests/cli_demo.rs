@@ -98,6 +98,7 @@ fn demo_writes_each_space_at_minus_one_dbfs_and_reports_plan_latency_and_cost() 
         "level",
         "partitions",
         "latency      64 frames (1.333 ms)",
+        "schedule auto (headroom 8%)",
         "real time",
         "% of one core",
         "worst callback",

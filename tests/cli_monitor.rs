@@ -64,6 +64,7 @@ fn monitor_runs_for_seconds_and_reports_zero_overruns() {
         assert!(t.elapsed() < Duration::from_secs(30), "took {:?}", t.elapsed());
         assert!(err.contains("CAUTION") && err.contains("headphones") && err.contains("feedback"), "{err}");
         assert!(err.contains("summary:") && err.contains("overruns"), "{err}");
+        assert!(err.contains("schedule auto (headroom 8%): sync"), "the default schedule, named: {err}");
         assert!(!err.contains('\r'), "no status line when stderr is not a terminal");
         serde_json::from_str::<serde_json::Value>(&std::fs::read_to_string(&json).unwrap()).unwrap()
     };
@@ -90,6 +91,8 @@ fn monitor_runs_for_seconds_and_reports_zero_overruns() {
     assert_eq!(v["nonfinite_samples"], 0, "{v}");
     assert_eq!(v["host"], "JACK");
     assert_eq!(v["block_frames"], 256);
+    // The default schedule is the planner's choice; its levels' schedules are reported.
+    assert!(v["schedules"].as_str().is_some_and(|s| s.starts_with("sync")), "{v}");
     let seconds = v["seconds"].as_f64().unwrap();
     assert!((4.5..6.0).contains(&seconds), "{seconds} s of audio");
     // Engine 5.33 ms plus the device side: a few periods of 5.33 ms.

@@ -196,16 +196,19 @@ fn host_period_keeps_worker_levels_at_least_two_periods_long() {
     assert!(String::from_utf8_lossy(&out.stderr).contains("--host-period"), "{}", String::from_utf8_lossy(&out.stderr));
 }
 
-/// `plan --schedule auto`: the planner picks the schedules; for S1 at block 64 under the flop model, the
-/// predicted heaviest call stays within the default 8% headroom (where the all-sync plan's does not), and a
-/// smaller `--headroom-pct` is honoured or, when nothing fits, the lightest plan is taken. An unknown
-/// schedule names the choices.
+/// `plan --schedule auto`, the default: the planner picks the schedules; for S1 at block 64 under the flop
+/// model, the predicted heaviest call stays within the default 8% headroom (where the all-sync plan's does
+/// not), and a smaller `--headroom-pct` is honoured. `--offline` takes the cheapest plan without workers.
+/// An unknown schedule names the choices.
 #[test]
 fn schedule_auto_keeps_the_predicted_heaviest_call_within_the_headroom() {
     let s1 = ["--ir-seconds", "10", "--channels", "2", "--block", "64"];
     let sync = plan_json(&[&s1[..], &["--schedule", "sync"]].concat());
     assert!(sync["predicted_heaviest_call_pct"].as_f64().unwrap() > 8.0, "{sync}");
-    let auto = plan_json(&[&s1[..], &["--schedule", "auto"]].concat());
+    assert_eq!(sync["schedule"], "sync");
+    let auto = plan_json(&s1);
+    assert_eq!(auto, plan_json(&[&s1[..], &["--schedule", "auto"]].concat()), "auto is the default");
+    assert_eq!(auto["schedule"], "auto (headroom 8%)");
     assert!(auto["predicted_heaviest_call_pct"].as_f64().unwrap() <= 8.0, "{auto}");
     assert!(auto["levels"].as_array().unwrap().iter().any(|l| l["schedule"] != "sync"), "{auto}");
     let tight = plan_json(&[&s1[..], &["--schedule", "auto", "--headroom-pct", "5"]].concat());
@@ -215,5 +218,21 @@ fn schedule_auto_keeps_the_predicted_heaviest_call_within_the_headroom() {
         .output()
         .unwrap();
     assert_eq!(out.status.code(), Some(2), "clap refuses the value");
-    assert!(String::from_utf8_lossy(&out.stderr).contains("auto, sync, workers or sliced"));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("auto, sync, sliced or workers"));
+    for bad in ["0", "-3", "nan"] {
+        let out = Command::new(env!("CARGO_BIN_EXE_partita"))
+            .args(["plan", "--ir-seconds", "1", "--headroom-pct", bad])
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(1), "--headroom-pct {bad}");
+        assert!(String::from_utf8_lossy(&out.stderr).contains("--headroom-pct must be a positive number"));
+    }
+    let offline = plan_json(&[&s1[..], &["--offline"]].concat());
+    assert_eq!(offline["offline"], true);
+    let levels = offline["levels"].as_array().unwrap();
+    assert!(levels.iter().all(|l| l["schedule"] != "workers"), "{levels:?}");
+    assert!(
+        offline["predicted_load_pct"].as_f64().unwrap() <= sync["predicted_load_pct"].as_f64().unwrap() + 1e-9,
+        "{offline}"
+    );
 }

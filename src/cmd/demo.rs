@@ -9,7 +9,7 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use clap::Args;
-use partita_core::{offline, CostModel, Engine, Mix, Planner, Routing, Schedule, Shape};
+use partita_core::{offline, CostModel, Engine, EngineOptions, Mix, Planner, Routing, Shape};
 use partita_io::{normalize, read_wav, scale_to_peak, write_wav_atomic, Audio, Dither, Normalize, SampleFormat};
 
 use super::{dbfs, levels_list, print_levels, CmdResult};
@@ -42,11 +42,8 @@ pub struct DemoArgs {
     /// Engine block of the live-style run, frames (its latency).
     #[arg(long, value_name = "N", default_value_t = 64)]
     block: usize,
-    /// Schedule of the live-style run's levels larger than the block: sync (all in the callback that
-    /// completes them), workers (worker threads) or sliced (spread over the callbacks of their period, no
-    /// threads).
-    #[arg(long, default_value = "sliced")]
-    schedule: Schedule,
+    #[command(flatten)]
+    schedule: super::ScheduleArgs,
     /// Routing of the rooms instead of the one their channels imply (the dry phrase is mono and the rooms are
     /// stereo, so mono-to-stereo): mono, mono-to-stereo, stereo, true-stereo or matrix:MxN.
     #[arg(long = "routing", alias = "layout", value_name = "ROUTING")]
@@ -202,15 +199,21 @@ pub fn run(args: DemoArgs) -> CmdResult {
 
         // Live-style run: the plan an audio callback at this block would use, run back to back on this thread.
         let model = CostModel::default();
-        let live = Planner::new()
-            .block_frames(args.block)
-            .schedule(args.schedule)
-            .shape(shape)
-            .cost_model(model.clone())
+        // The plan is the live one; the calls come back to back, faster than real time, so the engine runs
+        // in offline mode (worker results waited for, none dropped).
+        let live = args
+            .schedule
+            .apply(Planner::new().block_frames(args.block).shape(shape).cost_model(model.clone()), rate)?
             .plan(ir.frames())?;
-        let mut engine = Engine::new(&live, &ir, routing, live.block_frames)?;
+        let options = EngineOptions { offline: true, ..EngineOptions::new(live.block_frames) };
+        let mut engine = Engine::with_options(&live, &ir, routing, options)?;
         let stats = measure::run(&mut engine, rate, LIVE_SECONDS, live.block_frames, measure::Pacing::None);
-        println!("live plan    block {}, {} levels (optimal, flop model):", live.block_frames, args.schedule);
+        println!(
+            "live plan    block {}, schedule {}: {} (optimal, flop model):",
+            live.block_frames,
+            args.schedule.describe(),
+            super::schedules_used(&live)
+        );
         print_levels(&live);
         println!("latency      {} frames ({:.3} ms)", live.latency_frames(), ms(live.latency_frames()));
         println!(
@@ -227,11 +230,7 @@ pub fn run(args: DemoArgs) -> CmdResult {
             stats.max_pct,
             ms(live.block_frames),
             stats.p999_pct,
-            if args.schedule == Schedule::Workers {
-                format!(", {} late worker results", stats.late)
-            } else {
-                String::new()
-            }
+            if engine.worker_threads() > 0 { format!(", {} late worker results", stats.late) } else { String::new() }
         );
         println!(
             "wrote        {} ({:.2} s, {} channels, f32, gain {:.1} dB to peak {DEMO_PEAK_DBFS} dBFS)",

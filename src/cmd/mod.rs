@@ -47,6 +47,82 @@ pub mod devices {
     }
 }
 
+/// `--schedule` and `--headroom-pct`, shared by `plan`, `demo` and `monitor`.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ScheduleArgs {
+    /// Schedule of the levels larger than the block: auto (per level, the cheapest plan whose predicted
+    /// heaviest host call stays within --headroom-pct of the call's deadline), sync (all in the callback
+    /// that completes them), sliced (spread over the callbacks of their period, no threads) or workers
+    /// (worker threads).
+    #[arg(long, value_name = "S", default_value = "auto")]
+    pub schedule: ScheduleChoice,
+    /// The share of a host call's deadline, in percent, the predicted heaviest call may take (auto only;
+    /// --latency-ms uses it with every schedule).
+    #[arg(long, value_name = "PCT", default_value_t = partita_core::DEFAULT_HEADROOM_PCT, allow_negative_numbers = true)]
+    pub headroom_pct: f64,
+}
+
+impl ScheduleArgs {
+    /// The planner with this schedule choice, planning against deadlines at `rate_hz`.
+    pub fn apply(&self, planner: partita_core::Planner, rate_hz: u32) -> Result<partita_core::Planner, String> {
+        if !(self.headroom_pct.is_finite() && self.headroom_pct > 0.0) {
+            return Err(format!("--headroom-pct must be a positive number, got {}", self.headroom_pct));
+        }
+        let planner = planner.sample_rate_hz(rate_hz).auto(self.headroom_pct);
+        Ok(match self.schedule {
+            ScheduleChoice::Fixed(s) => planner.schedule(s),
+            ScheduleChoice::Auto => planner,
+        })
+    }
+
+    /// The choice in words: `auto (headroom 8%)` or the schedule's name.
+    pub fn describe(&self) -> String {
+        match self.schedule {
+            ScheduleChoice::Auto => format!("auto (headroom {}%)", self.headroom_pct),
+            ScheduleChoice::Fixed(s) => s.to_string(),
+        }
+    }
+}
+
+/// `--schedule`: one schedule for every level above the block, or the planner's choice.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum ScheduleChoice {
+    /// The planner chooses per level ([`partita_core::Planner::auto`]).
+    Auto,
+    /// One schedule for every level above the block.
+    Fixed(partita_core::Schedule),
+}
+
+impl std::str::FromStr for ScheduleChoice {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s {
+            "auto" => Ok(Self::Auto),
+            other => other
+                .parse()
+                .map(Self::Fixed)
+                .map_err(|_| format!("unknown schedule `{other}`; use auto, sync, sliced or workers")),
+        }
+    }
+}
+
+/// The schedules a plan's levels use, in words: `sync`, or e.g. `sync + sliced + workers`.
+pub fn schedules_used(plan: &partita_core::Plan) -> String {
+    let mut names: Vec<&str> = Vec::new();
+    for l in &plan.levels {
+        let n = l.schedule.as_str();
+        if !names.contains(&n) {
+            names.push(n);
+        }
+    }
+    if names.is_empty() {
+        "direct-form head only".to_string()
+    } else {
+        names.join(" + ")
+    }
+}
+
 /// What a subcommand returns: an error becomes one line on stderr and exit code 1.
 pub type CmdResult = Result<(), Box<dyn std::error::Error>>;
 

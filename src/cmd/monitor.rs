@@ -14,7 +14,7 @@ use std::path::PathBuf;
 use std::time::{Duration, Instant};
 
 use clap::Args;
-use partita_core::{CostModel, Engine, EngineOptions, Kernel, Mix, Planner, Routing, Schedule, Shape};
+use partita_core::{CostModel, Engine, EngineOptions, Kernel, Mix, Planner, Routing, Shape};
 use partita_device::{
     Ceiling, DeviceOptions, DeviceSelector, EngineSide, LiveDevices, SafetyOptions, Stats, StreamOptions,
 };
@@ -63,10 +63,8 @@ pub struct MonitorArgs {
     /// Zero latency: a direct-form head makes the engine sample-accurate.
     #[arg(long)]
     zero_latency: bool,
-    /// Schedule of the levels larger than the block: sliced (spread over callbacks, no threads),
-    /// workers (threads) or sync (all in the callback that completes them).
-    #[arg(long, value_name = "S", default_value = "sliced")]
-    schedule: Schedule,
+    #[command(flatten)]
+    schedule: super::ScheduleArgs,
     /// Ask for real-time (SCHED_FIFO) priorities for engine worker threads (with --schedule workers).
     #[arg(long)]
     realtime_workers: bool,
@@ -214,9 +212,9 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         .block_frames(args.block.unwrap_or(64))
         .host_period_frames(host_period)
         .zero_latency(args.zero_latency)
-        .schedule(args.schedule)
         .cost_model(CostModel::Measured(machine_costs(Kernel::detect(), false)))
         .shape(Shape::of(&map));
+    let planner = args.schedule.apply(planner, rate)?;
     let plan = if let Some(ms) = args.latency_ms {
         if !(ms.is_finite() && ms >= 0.0) {
             return Err(format!("--latency-ms must be a non-negative number, got {ms}").into());
@@ -276,12 +274,14 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         period(&info.output)
     );
     eprintln!(
-        "engine: {routing:?}, block {}{}, {} level(s) ({}), latency {} frames ({:.3} ms); wet {} dry {}; ceiling {} dBFS \
+        "engine: {routing:?}, block {}{}, {} level(s) ({}; schedule {}: {}), latency {} frames ({:.3} ms); wet {} dry {}; ceiling {} dBFS \
          ({}); Ctrl-C stops, SIGUSR1 toggles bypass, SIGUSR2 unmutes{}",
         plan.block_frames,
         if plan.zero_latency { " zero-latency" } else { "" },
         plan.levels.len(),
         super::levels_list(&plan),
+        args.schedule.describe(),
+        super::schedules_used(&plan),
         plan.latency_frames(),
         plan.latency_frames() as f64 * 1000.0 / f64::from(rate),
         args.wet,
@@ -465,6 +465,7 @@ fn summary_json(
         "output_period_frames": s.output_period_frames,
         "block_frames": plan.block_frames,
         "zero_latency": plan.zero_latency,
+        "schedules": super::schedules_used(plan),
         "engine_side": match info.side { EngineSide::Capture => "input", EngineSide::Playback => "output" },
         "fault": fault,
     })

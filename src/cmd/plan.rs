@@ -2,7 +2,7 @@
 //! levels, latency and predicted cost, and optionally measure it on this machine.
 
 use clap::Args;
-use partita_core::{CostModel, Engine, ImpulseResponse, Plan, PlanMode, Planner, Routing, Schedule, Shape};
+use partita_core::{CostModel, Engine, ImpulseResponse, Plan, PlanMode, Planner, Routing, Shape};
 use serde_json::json;
 
 use super::CmdResult;
@@ -36,13 +36,8 @@ pub struct PlanArgs {
     /// Routing: mono, mono-to-stereo, stereo, true-stereo or matrix:MxN [default: from the IR channels].
     #[arg(long = "routing", alias = "layout", value_name = "R")]
     routing: Option<Routing>,
-    /// Schedule of levels larger than the block: sync, workers, sliced, or auto (the cheapest plan whose
-    /// predicted heaviest call stays within --headroom-pct of the deadline).
-    #[arg(long, default_value = "sync")]
-    schedule: ScheduleChoice,
-    /// With --schedule auto: the share of the call's deadline the predicted heaviest call may take.
-    #[arg(long, value_name = "PCT", default_value_t = 8.0)]
-    headroom_pct: f64,
+    #[command(flatten)]
+    schedule: super::ScheduleArgs,
     /// With --schedule workers: levels below this many frames stay in the callback (lower mean load,
     /// longer callbacks when such a level completes); 0 puts every level above the block on a worker.
     #[arg(long, value_name = "N", default_value_t = 0)]
@@ -68,6 +63,10 @@ pub struct PlanArgs {
     /// reports what was granted. Off by default.
     #[arg(long)]
     realtime_workers: bool,
+    /// Plan for a host that calls faster than real time (an offline bounce, a batch job): no call has a
+    /// deadline, so auto picks the cheapest plan without worker threads, and --measure waits for workers.
+    #[arg(long)]
+    offline: bool,
     /// Measure the machine again instead of using the cached calibration.
     #[arg(long)]
     recalibrate: bool,
@@ -163,15 +162,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
         .cost_model(model.clone())
         .shape(shape);
-    let planner = match args.schedule {
-        ScheduleChoice::Fixed(s) => planner.schedule(s),
-        ScheduleChoice::Auto => {
-            if !(args.headroom_pct.is_finite() && args.headroom_pct > 0.0) {
-                return Err(format!("--headroom-pct must be a positive number, got {}", args.headroom_pct).into());
-            }
-            planner.auto(args.headroom_pct).sample_rate_hz(rate)
-        }
-    };
+    let planner = args.schedule.apply(planner, rate)?.offline(args.offline);
     if args.host_period == Some(0) {
         return Err("--host-period must be at least 1 frame".into());
     }
@@ -207,6 +198,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
     let options = partita_core::EngineOptions {
         realtime_workers: args.realtime_workers,
         host_period_frames: args.host_period,
+        offline: args.offline,
         ..partita_core::EngineOptions::new(call_frames.max(plan.block_frames))
     };
     let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
@@ -227,6 +219,8 @@ pub fn run(args: PlanArgs) -> CmdResult {
             "latency_frames": plan.latency_frames(),
             "latency_ms": ms(plan.latency_frames()),
             "head_frames": plan.head_frames,
+            "schedule": args.schedule.describe(),
+            "offline": args.offline,
             "levels": plan.levels.iter().map(|l| json!({
                 "block_frames": l.block_frames,
                 "partitions": l.partitions,
@@ -278,6 +272,12 @@ pub fn run(args: PlanArgs) -> CmdResult {
     println!();
     super::print_levels(&plan);
     println!();
+    println!(
+        "schedule     {}: {}{}",
+        args.schedule.describe(),
+        super::schedules_used(&plan),
+        if args.offline { " (offline: no deadlines, workers waited for)" } else { "" }
+    );
     println!(
         "latency      {} frames ({:.3} ms){}",
         plan.latency_frames(),
@@ -332,27 +332,6 @@ pub fn run(args: PlanArgs) -> CmdResult {
         );
     }
     Ok(())
-}
-
-/// `--schedule`: one schedule for every level above the block, or the planner's choice.
-#[derive(Debug, Clone, Copy, PartialEq)]
-enum ScheduleChoice {
-    Auto,
-    Fixed(Schedule),
-}
-
-impl std::str::FromStr for ScheduleChoice {
-    type Err = String;
-
-    fn from_str(s: &str) -> Result<Self, Self::Err> {
-        match s {
-            "auto" => Ok(Self::Auto),
-            other => other
-                .parse()
-                .map(Self::Fixed)
-                .map_err(|_| format!("unknown schedule `{other}`; use auto, sync, workers or sliced")),
-        }
-    }
 }
 
 /// What each worker was granted, in words.

@@ -56,7 +56,7 @@ pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};
 pub use plan::cost::{
     CostModel, MachineCosts, Shape, COPY_SECONDS_PER_SAMPLE, PACED_FACTOR, SLICED_OVERHEAD, SLICE_SECONDS, WAKE_SECONDS,
 };
-pub use plan::planner::{PlanMode, Planner};
+pub use plan::planner::{PlanMode, Planner, AUTO_WORKER_SLACK_SECONDS, DEFAULT_HEADROOM_PCT};
 pub use plan::{Level, Plan, Schedule};
 pub use platform::{process_cpu_seconds, thread_cpu_seconds};
 #[cfg(feature = "test-hooks")]

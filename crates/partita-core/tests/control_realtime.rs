@@ -1,6 +1,6 @@
 //! Real-time safety of the control side: every audio-path operation (process with random call sizes,
 //! swap pick-up, crossfade, retirement, gains, pre-delay, bypass, reset, status updates) runs under an
-//! allocation trap armed for the whole process, worker threads included, with every schedule.
+//! allocation trap armed for the whole process, worker threads included, with every schedule and the automatic choice.
 //!
 //! One test only in this binary: an all-threads trap would count another test's (or the harness's
 //! reporting of it) allocations. The two-thread stress test is `control_stress.rs`.
@@ -8,7 +8,7 @@
 mod support;
 
 use partita_core::synth::Noise;
-use partita_core::{Command, Engine, EngineOptions, Event, FadeState, Lateness, Routing, Schedule};
+use partita_core::{Command, Engine, EngineOptions, Event, FadeState, Lateness, Routing, Schedule, Shape};
 use partita_testkit::{armed_all_threads, TrapAllocator};
 use support::*;
 
@@ -17,10 +17,17 @@ static ALLOC: TrapAllocator = TrapAllocator;
 
 #[test]
 fn every_control_operation_on_the_audio_path_is_heap_free() {
-    for (schedule, zero) in [(Schedule::Sync, false), (Schedule::Workers, true), (Schedule::Sliced, false)] {
+    let choices = [
+        (Some(Schedule::Sync), false),
+        (Some(Schedule::Workers), true),
+        (Some(Schedule::Sliced), false),
+        (None, false),
+    ];
+    for (choice, zero) in choices {
+        let schedule = choice_name(choice);
         let (routing, channels) = (Routing::TrueStereo, 4);
         let a = random_ir(channels, 8000, 1);
-        let plan = scheduled_plan(schedule, zero, 8000, 32);
+        let plan = plan_for_choice(choice, zero, 8000, 32, Shape { inputs: 2, outputs: 2, paths: 4 });
         let options = EngineOptions { lateness: Lateness::Wait, max_predelay_frames: 1000, ..EngineOptions::new(256) };
         let mut engine = Engine::with_options(&plan, &a, routing, options).unwrap();
         let mut control = engine.control().unwrap();
@@ -64,15 +71,15 @@ fn every_control_operation_on_the_audio_path_is_heap_free() {
                 }
             }
         });
-        assert_eq!(heap_ops, 0, "{schedule:?}: the audio path or a worker touched the heap");
+        assert_eq!(heap_ops, 0, "{schedule}: the audio path or a worker touched the heap");
         let events = control.poll();
         let retired = events.iter().filter(|e| matches!(e, Event::Retired { .. })).count();
         let applied = events.iter().filter(|e| matches!(e, Event::Applied { .. })).count();
-        assert_eq!(retired, 3, "{schedule:?}: every swap finished and handed its old IR back");
-        assert_eq!(applied, 8, "{schedule:?}: every command took effect (reset included)");
+        assert_eq!(retired, 3, "{schedule}: every swap finished and handed its old IR back");
+        assert_eq!(applied, 8, "{schedule}: every command took effect (reset included)");
         let status = control.status();
         assert_eq!(status.swaps_completed, 3);
-        assert!(seen.contains(&FadeState::Crossfading), "{schedule:?}: states seen {seen:?}");
+        assert!(seen.contains(&FadeState::Crossfading), "{schedule}: states seen {seen:?}");
         assert_eq!(status.events_dropped, 0);
         assert_eq!(status.ir_id, 1, "the last IR swapped in");
     }

@@ -1,7 +1,8 @@
 //! Host calls paced in real time, with the default lateness policy, as a live host makes them: calls of
 //! one block, 4 blocks, 16 blocks, 1000 frames (neither a divisor nor a multiple of the block) and random
 //! sizes up to the maximum, on the `workers` and `sliced` schedules with their smallest levels at 1024
-//! frames and more. Each engine is told the host period (`EngineOptions::host_period_frames`, and the
+//! frames and more, and on the planner's automatic choice (`Planner::new()`, a headroom small enough that
+//! it must take levels out of the callback). Each engine is told the host period (`EngineOptions::host_period_frames`, and the
 //! planner the same), so no worker level is shorter than two host calls.
 //!
 //! What each case must show: no late result, output equal to the same plan with every level `sync`
@@ -64,6 +65,23 @@ fn plan_for(schedule: Schedule, host: usize, ir_frames: usize) -> Plan {
     plan
 }
 
+/// The automatic schedule's plan at host period `host` for a stereo IR: the default planner and headroom,
+/// costed for a machine 100 times slower than the flop model's (on this one a 0.5 s IR fits in the
+/// callback, which tests nothing new), so at one-block calls it must take levels out of the callback.
+fn auto_plan(host: usize, ir_frames: usize) -> Plan {
+    let stereo = partita_core::Shape { inputs: 2, outputs: 2, paths: 2 };
+    let slow = partita_core::CostModel::Flops { flops_per_second: 24e7 };
+    let plan =
+        Planner::new().block_frames(BLOCK).shape(stereo).cost_model(slow).host_period_frames(host).plan(ir_frames);
+    let plan = plan.unwrap();
+    // With one-block calls every heaviest call needs levels out of the callback. With longer calls the
+    // callback has more time, the sliced and worker plans gain less, and all-sync may be the right answer.
+    if host == BLOCK {
+        assert!(plan.levels.iter().any(|l| l.schedule != Schedule::Sync), "auto at host period {host}: {plan:?}");
+    }
+    plan
+}
+
 fn all_sync(plan: &Plan) -> Plan {
     let mut p = plan.clone();
     for l in &mut p.levels {
@@ -78,7 +96,7 @@ fn engine(plan: &Plan, ir: &ImpulseResponse, host: usize, max: usize) -> Engine 
 }
 
 #[test]
-fn paced_calls_of_every_size_are_on_time_and_exact_on_workers_and_sliced() {
+fn paced_calls_of_every_size_are_on_time_and_exact_on_workers_sliced_and_auto() {
     let _serial = SERIAL.lock().unwrap_or_else(|e| e.into_inner());
     let ir = random_ir(2, 24_000, 81);
     let input = random_input(2, 24_000, 82);
@@ -94,12 +112,15 @@ fn paced_calls_of_every_size_are_on_time_and_exact_on_workers_and_sliced() {
         ("random", 1024, 1024, Box::new(random_sizes(83, 1024))),
     ];
     for (label, host, max, mut sizes) in cases {
-        for schedule in [Schedule::Workers, Schedule::Sliced] {
-            let plan = plan_for(schedule, host, ir.frames());
+        for schedule in [Some(Schedule::Workers), Some(Schedule::Sliced), None] {
+            let plan = match schedule {
+                Some(s) => plan_for(s, host, ir.frames()),
+                None => auto_plan(host, ir.frames()),
+            };
             let mut e = engine(&plan, &ir, host, max);
             let monitor = e.monitor();
             let got = paced(&mut e, &input, total, &mut sizes);
-            let context = format!("{schedule}, calls of {label}");
+            let context = format!("{}, calls of {label}", schedule.map_or("auto", |s| s.as_str()));
             assert_eq!(monitor.late_results(), 0, "{context}: late results");
             // The same plan with every level in the callback, streamed the same way (unpaced: sync is
             // timing-free).

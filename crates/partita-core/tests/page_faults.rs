@@ -18,8 +18,13 @@
 
 #![cfg(unix)]
 
+mod support;
+
 use partita_core::synth::decaying_noise;
-use partita_core::{hooks, prefault_stack, Control, Engine, ImpulseResponse, Planner, PreparedIr, Routing, Schedule};
+use partita_core::{
+    hooks, prefault_stack, Control, Engine, ImpulseResponse, Planner, PreparedIr, Routing, Schedule, Shape,
+};
+use support::{auto_plan, choice_name};
 
 const BLOCK: usize = 64;
 const FADE_FRAMES: usize = 4800;
@@ -40,9 +45,12 @@ fn ir(seed: u64) -> ImpulseResponse {
 }
 
 /// An engine for `schedule` with its control handle and a second IR prepared for a swap.
-fn build(schedule: Schedule) -> (Engine, Control, PreparedIr, usize) {
+fn build(choice: Option<Schedule>) -> (Engine, Control, PreparedIr, usize) {
     let (a, b) = (ir(1), ir(3));
-    let plan = Planner::new().block_frames(BLOCK).schedule(schedule).plan(a.frames()).unwrap();
+    let plan = match choice {
+        Some(schedule) => Planner::new().block_frames(BLOCK).schedule(schedule).plan(a.frames()).unwrap(),
+        None => auto_plan(false, a.frames(), BLOCK, Shape { inputs: 2, outputs: 2, paths: 2 }, BLOCK),
+    };
     let largest = plan.levels.iter().map(|l| l.block_frames).max().unwrap();
     let mut engine = Engine::new(&plan, &a, Routing::Stereo, 256).unwrap();
     let control = engine.control().unwrap();
@@ -87,22 +95,23 @@ fn process_takes_no_page_fault_on_any_schedule_and_the_check_can_fail() {
     prefault_stack(512 * 1024);
     let mut alive = Vec::new();
     let mut twin_faults = Vec::new();
-    for schedule in [Schedule::Sync, Schedule::Sliced, Schedule::Workers] {
+    for choice in [Some(Schedule::Sync), Some(Schedule::Sliced), Some(Schedule::Workers), None] {
+        let schedule = choice_name(choice);
         // The twin: same plan, same calls; it warms the code paths and this thread's stack, and stays alive.
-        let (mut twin, mut twin_control, twin_ir, largest) = build(schedule);
+        let (mut twin, mut twin_control, twin_ir, largest) = build(choice);
         twin_faults.push(faults_across_process(&mut twin, &mut twin_control, twin_ir, largest));
-        let (mut engine, mut control, prepared, largest) = build(schedule);
+        let (mut engine, mut control, prepared, largest) = build(choice);
         let faults = faults_across_process(&mut engine, &mut control, prepared, largest);
         assert_eq!(faults, 0, "{schedule}: {faults} minor page faults inside process()");
         alive.push((twin, twin_control, engine, control));
     }
     hooks::set_skip_prefault(true);
-    let (mut engine, mut control, prepared, largest) = build(Schedule::Sync);
+    let (mut engine, mut control, prepared, largest) = build(Some(Schedule::Sync));
     hooks::set_skip_prefault(false);
     let unprefaulted = faults_across_process(&mut engine, &mut control, prepared, largest);
     assert!(unprefaulted > 0, "without prefaulting the count must be non-zero, or this test cannot fail");
     eprintln!(
-        "minor faults in process(): 0 on sync, sliced and workers; {unprefaulted} without prefaulting; twins \
+        "minor faults in process(): 0 on sync, sliced, workers and auto; {unprefaulted} without prefaulting; twins \
          (cold code and stack) {twin_faults:?}"
     );
 }

@@ -1,6 +1,9 @@
 //! The optimal planner against exhaustive search, the uniform plan and the doubling plan.
 
-use partita_core::{CostModel, Level, MachineCosts, Plan, PlanMode, Planner, Schedule, Shape};
+use partita_core::{
+    CostModel, Level, MachineCosts, Plan, PlanMode, Planner, Schedule, Shape, AUTO_WORKER_SLACK_SECONDS,
+    DEFAULT_HEADROOM_PCT,
+};
 
 /// Candidate sizes in blocks, as the planner documents them: 2^k and 3 * 2^k up to `cap`.
 fn sizes(cap: usize) -> Vec<usize> {
@@ -155,7 +158,7 @@ fn optimal_never_costs_more_than_uniform_or_doubling() {
     for model in [CostModel::default(), measured_model()] {
         for b in [16usize, 32, 64, 128, 256] {
             for ir_frames in [1000usize, 24_000, 100_003, 480_000] {
-                let planner = Planner::new().block_frames(b).cost_model(model.clone());
+                let planner = Planner::new().block_frames(b).schedule(Schedule::Sync).cost_model(model.clone());
                 let plan = planner.plan(ir_frames).unwrap();
                 plan.validate().unwrap();
                 let uniform = planner.clone().mode(PlanMode::Uniform).plan(ir_frames).unwrap();
@@ -197,20 +200,21 @@ fn every_emitted_plan_is_valid() {
 fn s1_plan_is_within_1_5x_of_the_published_flop_optimum() {
     // DESIGN.md: the flop-model optimum for 480k taps at B = 64 is about 914 flops/sample
     // (64x15 + 512x14 + 4096x14 + 32768x13), against about 61,000 for uniform partitions.
-    let plan = Planner::new().block_frames(64).plan(480_000).unwrap();
+    let plan = Planner::new().block_frames(64).schedule(Schedule::Sync).plan(480_000).unwrap();
     let f = plan.flops_per_sample();
     assert!(f <= 1.5 * 914.0, "{f}");
     let uniform = Planner::new().block_frames(64).mode(PlanMode::Uniform).plan(480_000).unwrap();
     let fu = uniform.flops_per_sample();
     assert!((fu - (10.0 * 128f64.log2() + 8.0 * 7500.0 * 65.0 / 64.0)).abs() < 1.0, "{fu}");
     // T11: cost at 480k taps within 2.5x of the cost at 24k taps (uniform grows ~20x).
-    let small = Planner::new().block_frames(64).plan(24_000).unwrap().flops_per_sample();
+    let small = Planner::new().block_frames(64).schedule(Schedule::Sync).plan(24_000).unwrap().flops_per_sample();
     assert!(f <= 2.5 * small, "{f} vs {small}");
 }
 
 #[test]
-fn latency_budget_picks_the_cheapest_plan_that_fits() {
-    let planner = Planner::new();
+fn offline_latency_budget_picks_the_cheapest_plan_that_fits() {
+    // Offline no call has a deadline, so the heaviest call does not matter and the cheapest plan wins.
+    let planner = Planner::new().schedule(Schedule::Sync).offline(true);
     let (plan, why) = planner.plan_for_latency(300, 480_000).unwrap();
     assert!(plan.latency_frames() <= 300, "{why}");
     assert!(!why.is_empty());
@@ -304,8 +308,12 @@ fn auto_picks_the_cheapest_plan_within_the_headroom() {
     let model = base.model().clone();
     let worst = |p: &Plan| model.heaviest_call_pct(p, stereo, stereo.groups(), 48_000.0, 64);
     let mean = |p: &Plan| model.plan_cost(p, stereo);
+    // The workers plan keeps levels under 1024 frames in the callback, as auto does (64 frames of host
+    // period plus AUTO_WORKER_SLACK_SECONDS at 48 kHz).
+    let floor = 64 + (AUTO_WORKER_SLACK_SECONDS * 48_000.0).ceil() as usize;
+    assert_eq!(floor, 1024);
     let singles: Vec<Plan> = [Schedule::Sync, Schedule::Sliced, Schedule::Workers]
-        .map(|s| base.clone().schedule(s).plan(480_000).unwrap())
+        .map(|s| base.clone().schedule(s).min_worker_frames(floor).plan(480_000).unwrap())
         .into();
 
     let roomy = base.clone().auto(1e9).plan(480_000).unwrap();
@@ -339,4 +347,89 @@ fn latency_budget_under_auto_keeps_the_heaviest_call_within_the_headroom() {
     assert!(plan.latency_frames() <= 144 && why.contains("8% headroom"), "{why}");
     let (_, why) = Planner::new().shape(stereo).auto(0.0).plan_for_latency(144, 480_000).unwrap();
     assert!(why.contains("no plan's predicted heaviest call fits"), "{why}");
+}
+
+/// The default planner is the automatic one with the default headroom, on the flop model at 48 kHz; a
+/// fixed schedule replaces it. For S1 (10 s stereo, block 64) it keeps the predicted heaviest call within
+/// 8%, which the all-sync plan does not.
+#[test]
+fn the_default_planner_chooses_its_schedules() {
+    assert_eq!(Planner::new().auto_headroom_pct(), Some(DEFAULT_HEADROOM_PCT));
+    assert_eq!(Planner::new(), Planner::new().auto(DEFAULT_HEADROOM_PCT));
+    assert_eq!(Planner::new().schedule(Schedule::Sync).auto_headroom_pct(), None);
+    let stereo = Shape { inputs: 2, outputs: 2, paths: 2 };
+    let model = CostModel::default();
+    let worst = |p: &Plan| model.heaviest_call_pct(p, stereo, stereo.groups(), 48_000.0, 64);
+    let default = Planner::new().shape(stereo).plan(480_000).unwrap();
+    let sync = Planner::new().shape(stereo).schedule(Schedule::Sync).plan(480_000).unwrap();
+    assert!(worst(&sync) > DEFAULT_HEADROOM_PCT, "all-sync S1 predicted {}%: the test needs it over", worst(&sync));
+    assert!(worst(&default) <= DEFAULT_HEADROOM_PCT, "{}% for {:?}", worst(&default), default.levels);
+    assert!(default.levels.iter().any(|l| l.schedule != Schedule::Sync), "{:?}", default.levels);
+}
+
+/// Auto never gives a worker less than `AUTO_WORKER_SLACK_SECONDS` beyond one host period, whatever the
+/// machine: here a model 100 times slower than the flop model's, which pushes every level it can off the
+/// callback.
+#[test]
+fn auto_keeps_short_levels_off_the_workers() {
+    let slow = CostModel::Flops { flops_per_second: 24e7 };
+    for rate in [44_100u32, 48_000, 96_000] {
+        for host in [32usize, 64, 256, 1024] {
+            let plan = Planner::new()
+                .block_frames(32)
+                .cost_model(slow.clone())
+                .sample_rate_hz(rate)
+                .host_period_frames(host)
+                .plan(10 * rate as usize)
+                .unwrap();
+            let floor = host as f64 + AUTO_WORKER_SLACK_SECONDS * f64::from(rate);
+            for l in plan.levels.iter().filter(|l| l.schedule == Schedule::Workers) {
+                assert!(l.block_frames as f64 >= floor, "{rate} Hz, host {host}: {:?}", plan.levels);
+            }
+            assert!(plan.levels.iter().any(|l| l.schedule != Schedule::Sync), "{rate} Hz, host {host}");
+        }
+    }
+}
+
+/// Offline, the automatic schedule uses no workers and takes the cheapest mean cost among its candidates,
+/// whatever their heaviest call: never more than the all-sync plan.
+#[test]
+fn offline_auto_has_no_workers_and_the_lowest_mean_cost() {
+    let stereo = Shape { inputs: 2, outputs: 2, paths: 2 };
+    for b in [32usize, 64, 256] {
+        let planner = Planner::new().block_frames(b).shape(stereo).offline(true);
+        let plan = planner.plan(480_000).unwrap();
+        assert!(plan.levels.iter().all(|l| l.schedule != Schedule::Workers), "B={b}: {:?}", plan.levels);
+        let model = planner.model();
+        for s in [Schedule::Sync, Schedule::Sliced] {
+            let other = planner.clone().schedule(s).plan(480_000).unwrap();
+            assert!(model.plan_cost(&plan, stereo) <= model.plan_cost(&other, stereo) + 1e-9, "B={b} vs {s}");
+        }
+    }
+}
+
+/// `--latency-ms` judges blocks by the heaviest call under a fixed schedule too: S1 all-sync within 3 ms
+/// fits no block's 8% headroom, so the chosen block has the lightest predicted heaviest call of every
+/// candidate and the reason says that none fits.
+#[test]
+fn latency_budget_under_a_fixed_schedule_takes_the_lightest_heaviest_call() {
+    let stereo = Shape { inputs: 2, outputs: 2, paths: 2 };
+    let planner = Planner::new().shape(stereo).schedule(Schedule::Sync);
+    let (plan, why) = planner.plan_for_latency(144, 480_000).unwrap();
+    let model = planner.model().clone();
+    let worst = |p: &Plan| model.heaviest_call_pct(p, stereo, stereo.groups(), 48_000.0, p.block_frames);
+    assert!(why.contains("no plan's predicted heaviest call fits the 8% headroom"), "{why}");
+    let mut candidates: Vec<Plan> =
+        [16usize, 32, 64, 128].iter().map(|&b| planner.clone().block_frames(b).plan(480_000).unwrap()).collect();
+    candidates.extend((4..=9).map(|k| planner.clone().block_frames(1 << k).zero_latency(true).plan(480_000).unwrap()));
+    for c in &candidates {
+        assert!(
+            worst(&plan) <= worst(c) + 1e-9,
+            "chose {:?} at {}%, but {:?} has {}%",
+            plan.levels,
+            worst(&plan),
+            c.levels,
+            worst(c)
+        );
+    }
 }

@@ -1,4 +1,4 @@
-//! Real-time safety on every thread: worker and sliced schedules run under an allocation trap armed for
+//! Real-time safety on every thread: worker, sliced and automatic (mixed) schedules run under an allocation trap armed for
 //! the whole process, so the worker threads' job loops are covered, not only the audio thread.
 //! One test only in this binary: an all-threads trap would count other tests' allocations.
 
@@ -6,7 +6,7 @@ mod support;
 
 use std::time::Duration;
 
-use partita_core::{Engine, Planner, Routing, Schedule};
+use partita_core::{Engine, Routing, Schedule, Shape};
 use partita_testkit::{armed_all_threads, TrapAllocator};
 use support::*;
 
@@ -14,21 +14,20 @@ use support::*;
 static ALLOC: TrapAllocator = TrapAllocator;
 
 #[test]
-fn workers_and_sliced_levels_never_touch_the_heap_on_any_thread() {
-    for (schedule, zero) in
-        [(Schedule::Workers, false), (Schedule::Workers, true), (Schedule::Sliced, false), (Schedule::Sliced, true)]
-    {
+fn workers_sliced_and_auto_levels_never_touch_the_heap_on_any_thread() {
+    for (choice, zero) in [
+        (Some(Schedule::Workers), false),
+        (Some(Schedule::Workers), true),
+        (Some(Schedule::Sliced), false),
+        (Some(Schedule::Sliced), true),
+        (None, false),
+        (None, true),
+    ] {
+        let schedule = choice_name(choice);
         for (routing, channels) in [(Routing::Stereo, 2usize), (Routing::TrueStereo, 4)] {
             let ir = random_ir(channels, 30_000, 7);
-            let plan = Planner::new()
-                .block_frames(32)
-                .zero_latency(zero)
-                .schedule(schedule)
-                .min_sliced_frames(0)
-                .min_worker_frames(0)
-                .plan(30_000)
-                .unwrap();
-            assert!(plan.levels.iter().any(|l| l.schedule == schedule), "{:?}", plan.levels);
+            let shape = Shape::of(&routing.resolve(channels).unwrap());
+            let plan = plan_for_choice(choice, zero, 30_000, 32, shape);
             let mut engine = Engine::new(&plan, &ir, routing, 256).unwrap();
             let monitor = engine.monitor();
             let input = random_input(2, 256, 8);
@@ -53,7 +52,7 @@ fn workers_and_sliced_levels_never_touch_the_heap_on_any_thread() {
             });
             assert_eq!(heap_ops, 0, "{schedule} zero={zero} {routing:?}: heap touched on some thread");
             assert!(monitor.frames_processed() > 0);
-            if schedule == Schedule::Workers {
+            if engine.worker_threads() > 0 {
                 assert!(monitor.worker_cpu_seconds() > 0.0, "the workers did run");
             }
         }

@@ -11,7 +11,7 @@ mod support;
 use std::time::{Duration, Instant};
 
 use partita_core::synth::{decaying_noise, Noise};
-use partita_core::{naive, Engine, ImpulseResponse, Planner, Routing, Schedule};
+use partita_core::{naive, CostModel, Engine, ImpulseResponse, Planner, Routing, Schedule};
 use partita_device::{
     DeviceOptions, EngineSide, Fault, LiveDevices, LiveStream, MuteReason, SafetyOptions, StreamOptions,
 };
@@ -24,22 +24,46 @@ fn stereo_ir(frames: usize, gain: f32) -> Vec<Vec<f32>> {
 }
 
 fn engine(taps: &[Vec<f32>], routing: Routing, block: usize) -> Engine {
-    engine_with(taps, routing, block, Schedule::Sync)
+    engine_with(taps, routing, block, Some(Schedule::Sync))
 }
 
-/// An engine whose levels above the block all run on `schedule` (no size thresholds), with the default
-/// options (default lateness policy).
-fn engine_with(taps: &[Vec<f32>], routing: Routing, block: usize, schedule: Schedule) -> Engine {
+/// `Some(schedule)`: an engine whose levels above the block all run on `schedule` (no size thresholds).
+/// `None`: the planner's automatic choice (`Planner::new()`) for one-block host calls, costed for a
+/// machine 100 times slower than the flop model's, so that it takes levels out of the callback even for
+/// this short IR. Either with the default options (default lateness policy).
+fn engine_with(taps: &[Vec<f32>], routing: Routing, block: usize, choice: Option<Schedule>) -> Engine {
     let ir = ImpulseResponse::new(taps.to_vec(), RATE).unwrap();
-    let plan = Planner::new()
-        .block_frames(block)
-        .schedule(schedule)
-        .min_sliced_frames(0)
-        .min_worker_frames(0)
-        .plan(ir.frames())
-        .unwrap();
-    assert!(schedule == Schedule::Sync || plan.levels.iter().any(|l| l.schedule == schedule), "{schedule}: {plan:?}");
+    let plan = match choice {
+        Some(schedule) => {
+            let plan = Planner::new()
+                .block_frames(block)
+                .schedule(schedule)
+                .min_sliced_frames(0)
+                .min_worker_frames(0)
+                .plan(ir.frames())
+                .unwrap();
+            let used = plan.levels.iter().any(|l| l.schedule == schedule);
+            assert!(schedule == Schedule::Sync || used, "{schedule}: {plan:?}");
+            plan
+        }
+        None => {
+            let slow = CostModel::Flops { flops_per_second: 24e7 };
+            let plan = Planner::new()
+                .block_frames(block)
+                .host_period_frames(block)
+                .cost_model(slow)
+                .plan(ir.frames())
+                .unwrap();
+            assert!(plan.levels.iter().any(|l| l.schedule != Schedule::Sync), "auto: {plan:?}");
+            plan
+        }
+    };
     Engine::new(&plan, &ir, routing, 4096).unwrap()
+}
+
+/// A schedule choice in words.
+fn name(choice: Option<Schedule>) -> &'static str {
+    choice.map_or("auto", |s| s.as_str())
 }
 
 fn start_live(engine: Engine, side: EngineSide) -> LiveStream {
@@ -93,7 +117,7 @@ impl Run {
 /// One end-to-end run at the server's current period: 2 s of stereo noise through a 4800-tap stereo
 /// IR, recorded, and compared window by window with the offline convolution (DESIGN.md section 4
 /// bound) at the lag of the first sound.
-fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
+fn end_to_end(side: EngineSide, schedule: Option<Schedule>) -> Run {
     let taps = stereo_ir(4800, 0.05);
     let live = start_live(engine_with(&taps, Routing::Stereo, 64, schedule), side);
     // Past the 250 ms fade-in before the signal starts.
@@ -141,21 +165,21 @@ fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
         }
         lags.push(lag);
     }
-    assert_eq!(lags[0], lags[1], "channels disagree on the latency");
+    // A glitch while the first sound arrives can shift one channel's first-sound lag (the windows are then
+    // judged each at its own lag); without counted glitches both channels must agree exactly.
+    let glitches = stats.host_xruns + stats.overruns();
+    if glitches == 0 {
+        assert_eq!(lags[0], lags[1], "channels disagree on the latency");
+    } else if lags[0] != lags[1] {
+        eprintln!("  {side:?}: channel lags {lags:?} differ after {glitches} counted glitches");
+    }
     let reported = stats.latency_ms * f64::from(RATE) / 1000.0;
     eprintln!(
         "{side:?} at period {period}: measured lag {} frames through the graph, JACK port latencies {ports} frames, \
          reported {reported:.1} frames ({:.3} ms; min {:.3}, max {:.3}); {good} of {total} windows exact",
         lags[0], stats.latency_ms, stats.latency_min_ms, stats.latency_max_ms
     );
-    Run {
-        lag: lags[0],
-        reported,
-        ports,
-        exact: (good, total),
-        exact_relagged: good_relagged,
-        glitches: stats.host_xruns + stats.overruns(),
-    }
+    Run { lag: lags[0], reported, ports, exact: (good, total), exact_relagged: good_relagged, glitches }
 }
 
 /// Runs `end_to_end` and judges it: every window exact; or, when the run counted glitches (a
@@ -163,7 +187,7 @@ fn end_to_end(side: EngineSide, schedule: Schedule) -> Run {
 /// least `min_exact` of the windows exact, each at its own lag within two periods (an xrun re-primes the
 /// ring and may move the lag; between glitches the output must still be the exact convolution).
 /// Mismatches in a run without any counted glitch always fail.
-fn judged_end_to_end(side: EngineSide, schedule: Schedule, min_exact: f64) -> Run {
+fn judged_end_to_end(side: EngineSide, schedule: Option<Schedule>, min_exact: f64) -> Run {
     let first = end_to_end(side, schedule);
     if first.clean() {
         return first;
@@ -196,9 +220,9 @@ fn end_to_end_equals_the_offline_convolution() {
     // Sync and sliced levels: both run inside the callback, so a 256-frame period (4 engine blocks per
     // callback) is fine for them. (Worker levels need the host period to plan for; see the 64-frame test.)
     for (side, schedule) in [
-        (EngineSide::Capture, Schedule::Sync),
-        (EngineSide::Playback, Schedule::Sync),
-        (EngineSide::Capture, Schedule::Sliced),
+        (EngineSide::Capture, Some(Schedule::Sync)),
+        (EngineSide::Playback, Some(Schedule::Sync)),
+        (EngineSide::Capture, Some(Schedule::Sliced)),
     ] {
         let run = judged_end_to_end(side, schedule, 0.75);
         let want = (run.lag + run.ports as usize) as f64;
@@ -221,9 +245,10 @@ fn end_to_end_equals_the_offline_convolution() {
 fn end_to_end_at_period_64() {
     let _serial = serial();
     let Some(server) = jack_or_skip("end_to_end_at_period_64", 64) else { return };
-    // Every schedule at one block per callback, with the default lateness policy.
-    for schedule in [Schedule::Sync, Schedule::Sliced, Schedule::Workers] {
-        let run = judged_end_to_end(EngineSide::Capture, schedule, 0.0);
+    // Every schedule and the automatic choice at one block per callback, with the default lateness policy.
+    for choice in [Some(Schedule::Sync), Some(Schedule::Sliced), Some(Schedule::Workers), None] {
+        let schedule = name(choice);
+        let run = judged_end_to_end(EngineSide::Capture, choice, 0.0);
         assert!(run.lag >= 64 && run.lag <= 64 * 6, "{schedule}: lag {}", run.lag);
         let want = (run.lag + run.ports as usize) as f64;
         // The reported figure is a mean over the run: glitches (re-priming, then trimming) move it a little.

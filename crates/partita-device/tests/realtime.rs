@@ -2,20 +2,26 @@
 //! ring push/pop, priming, drift correction, the engine in chunks with its mix, safety stage, meters,
 //! timing) run under the allocation-trapping global allocator, on both engine sides, in several formats,
 //! with period changes, corrections, mutes, unmute and bypass (through the engine's `Control`) along the
-//! way.
+//! way; with the default planner's plan (all in the callback for this short IR) and an automatic plan that
+//! takes levels out of the callback.
 
 use partita_core::synth::{decaying_noise, Noise};
-use partita_core::{Command, Control, Engine, ImpulseResponse, Routing};
+use partita_core::{Command, Control, CostModel, Engine, ImpulseResponse, Routing, Schedule};
 use partita_device::{Bridge, BridgeOptions, CallbackTime, EngineSide, SafetyOptions};
 use partita_testkit::{armed, TrapAllocator};
 
 #[global_allocator]
 static ALLOC: TrapAllocator = TrapAllocator;
 
-fn bridge(side: EngineSide) -> (Bridge, Control) {
+/// The default planner's plan, or with `off_callback` the automatic schedule costed for a machine 100
+/// times slower than the flop model's (so it must move levels to sliced or workers).
+fn bridge(side: EngineSide, off_callback: bool) -> (Bridge, Control) {
     let taps: Vec<Vec<f32>> = (0..2).map(|c| decaying_noise(2000, 800.0, c)).collect();
     let ir = ImpulseResponse::new(taps, 48_000).unwrap();
-    let plan = partita_core::Planner::new().block_frames(32).plan(ir.frames()).unwrap();
+    let planner = partita_core::Planner::new().block_frames(32);
+    let planner = if off_callback { planner.cost_model(CostModel::Flops { flops_per_second: 24e7 }) } else { planner };
+    let plan = planner.plan(ir.frames()).unwrap();
+    assert_eq!(off_callback, plan.levels.iter().any(|l| l.schedule != Schedule::Sync), "{plan:?}");
     let mut engine = Engine::new(&plan, &ir, Routing::Stereo, 512).unwrap();
     let control = engine.control().unwrap();
     let options = BridgeOptions {
@@ -29,8 +35,10 @@ fn bridge(side: EngineSide) -> (Bridge, Control) {
 
 #[test]
 fn callbacks_never_touch_the_heap() {
-    for side in [EngineSide::Capture, EngineSide::Playback] {
-        let (Bridge { mut capture, mut playback, handle }, mut control) = bridge(side);
+    for (side, off_callback) in
+        [(EngineSide::Capture, false), (EngineSide::Playback, false), (EngineSide::Capture, true)]
+    {
+        let (Bridge { mut capture, mut playback, handle }, mut control) = bridge(side, off_callback);
         let mut noise = Noise::new(1);
         // Everything the calls use is allocated up front.
         let max = 1500;
@@ -75,7 +83,10 @@ fn callbacks_never_touch_the_heap() {
                 }
             }
         });
-        assert_eq!(heap_ops, 0, "{side:?}: the callbacks allocated or freed {heap_ops} times");
+        assert_eq!(
+            heap_ops, 0,
+            "{side:?} (levels off the callback: {off_callback}): the callbacks allocated or freed {heap_ops} times"
+        );
         let s = handle.stats();
         assert!(s.mutes > 0 && s.nonfinite_inputs > 0, "the run should exercise the mute paths: {s:?}");
     }
@@ -84,7 +95,7 @@ fn callbacks_never_touch_the_heap() {
 /// The entry points the cpal callbacks call, with cpal's format-tagged buffers (the format dispatch).
 #[test]
 fn format_dispatch_never_touches_the_heap() {
-    let (Bridge { mut capture, mut playback, handle }, _control) = bridge(EngineSide::Capture);
+    let (Bridge { mut capture, mut playback, handle }, _control) = bridge(EngineSide::Capture, false);
     let mut input: Vec<i16> = (0..512).map(|i| (i * 37 % 2000) as i16).collect();
     let mut output = vec![0u16; 512];
     // SAFETY: both pointers come from live Vecs of the stated element type and length, which outlive

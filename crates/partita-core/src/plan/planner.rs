@@ -37,10 +37,24 @@ pub struct Planner {
     min_sliced_frames: usize,
     min_worker_frames: usize,
     host_period_frames: Option<usize>,
-    /// `Some(headroom %)`: choose the schedules ([`auto`](Planner::auto)).
+    /// `Some(headroom %)`: choose the schedules ([`auto`](Planner::auto)); the default.
     auto_headroom_pct: Option<f64>,
     sample_rate_hz: f64,
+    offline: bool,
 }
+
+/// The share of a host call's deadline, in percent, that the automatic schedule lets the predicted
+/// heaviest call take ([`Planner::auto`]). 8% leaves the rest of the callback to the host and absorbs
+/// the model's error (predicted over measured is 0.9-2 on the benchmarked grid, docs/benchmarks/latency.md).
+pub const DEFAULT_HEADROOM_PCT: f64 = 8.0;
+
+/// The automatic schedule puts a level on a worker only when the worker has at least this long beyond one
+/// host period to deliver (N - H >= 20 ms of audio; N >= 1024 frames at 48 kHz with one-block calls of 64).
+/// A worker is an ordinary thread, and an OS, or a virtual machine's host, can hold one off for
+/// milliseconds; a worker level of a few blocks misses its result whenever that happens. Seen here: the
+/// paced test (tests/paced.rs, one-block calls at block 64, a 2-core VM busy compiling) counted a late
+/// result from an automatic plan with a 256-frame worker level (5.3 ms period) before this floor.
+pub const AUTO_WORKER_SLACK_SECONDS: f64 = 0.020;
 
 impl Default for Planner {
     fn default() -> Self {
@@ -55,8 +69,9 @@ pub(crate) fn min_worker_level_frames(block_frames: usize, host_period_frames: O
 }
 
 impl Planner {
-    /// Block 64, block latency, synchronous levels, optimal layout, flop model, mono cost, levels of at
-    /// most 65,536 frames.
+    /// Block 64, block latency, the automatic schedule with [`DEFAULT_HEADROOM_PCT`] at 48 kHz and host
+    /// calls of one block, optimal layout, flop model, mono cost, levels of at most 65,536 frames.
+    /// [`schedule`](Self::schedule) fixes one schedule instead.
     pub fn new() -> Self {
         Self {
             block_frames: 64,
@@ -69,8 +84,9 @@ impl Planner {
             min_sliced_frames: 2048,
             min_worker_frames: 0,
             host_period_frames: None,
-            auto_headroom_pct: None,
+            auto_headroom_pct: Some(DEFAULT_HEADROOM_PCT),
             sample_rate_hz: 48_000.0,
+            offline: false,
         }
     }
 
@@ -88,12 +104,15 @@ impl Planner {
         self
     }
 
-    /// The schedule of every level larger than the engine block (level-0 blocks are always `sync`; with
-    /// `sliced`, so are levels below [`min_sliced_frames`](Self::min_sliced_frames), and with `workers`,
-    /// levels below [`min_worker_frames`](Self::min_worker_frames)).
+    /// One schedule for every level larger than the engine block, instead of the automatic choice
+    /// (level-0 blocks are always `sync`; with `sliced`, so are levels below
+    /// [`min_sliced_frames`](Self::min_sliced_frames), and with `workers`, levels below
+    /// [`min_worker_frames`](Self::min_worker_frames)). Layouts given to [`custom`](Self::custom) take this
+    /// schedule (`sync` unless set) whether or not the planner is automatic.
     #[must_use = "a builder method returns the changed planner"]
     pub fn schedule(mut self, schedule: Schedule) -> Self {
         self.schedule = schedule;
+        self.auto_headroom_pct = None;
         self
     }
 
@@ -170,11 +189,28 @@ impl Planner {
     /// ([`CostModel::heaviest_call_pct`]) stays within `headroom_pct` percent of the call's deadline; when
     /// none does, the one with the lightest heaviest call. The host period and the sample rate set the
     /// deadline ([`host_period_frames`](Self::host_period_frames), [`sample_rate_hz`](Self::sample_rate_hz)).
-    /// Deterministic: the same inputs give the same plan. Not the default yet.
+    /// Deterministic: the same inputs give the same plan. The default, with [`DEFAULT_HEADROOM_PCT`];
+    /// with [`offline`](Self::offline), the cheapest plan without workers, whatever its heaviest call.
     #[must_use = "a builder method returns the changed planner"]
     pub fn auto(mut self, headroom_pct: f64) -> Self {
         self.auto_headroom_pct = Some(headroom_pct);
         self
+    }
+
+    /// Plans for a host that calls faster than real time (an offline bounce, JACK freewheel, a batch job):
+    /// no call has a deadline, so [`auto`](Self::auto) ignores the heaviest call and picks the plan with
+    /// the lowest mean cost among those without worker threads (workers would only be waited for). A
+    /// fixed [`schedule`](Self::schedule) is kept as given; build the engine with
+    /// [`EngineOptions::offline`](crate::EngineOptions::offline) so a `workers` plan drops nothing.
+    #[must_use = "a builder method returns the changed planner"]
+    pub fn offline(mut self, offline: bool) -> Self {
+        self.offline = offline;
+        self
+    }
+
+    /// The automatic schedule's headroom in percent of a call's deadline, or `None` for a fixed schedule.
+    pub fn auto_headroom_pct(&self) -> Option<f64> {
+        self.auto_headroom_pct
     }
 
     /// The stream's sample rate, for the deadlines [`auto`](Self::auto) plans against (default 48 kHz).
@@ -228,11 +264,16 @@ impl Planner {
         let host = self.host_period_frames.unwrap_or(self.block_frames).max(1);
         let mut candidates = vec![fixed.clone().schedule(Schedule::Sync)];
         let mut size = 2 * self.block_frames;
+        let worker_floor = host + (AUTO_WORKER_SLACK_SECONDS * self.sample_rate_hz).ceil() as usize;
         while size <= self.max_level_frames {
             candidates.push(fixed.clone().schedule(Schedule::Sliced).min_sliced_frames(size));
-            candidates.push(fixed.clone().schedule(Schedule::Workers).min_worker_frames(size));
+            if !self.offline && size >= worker_floor {
+                candidates.push(fixed.clone().schedule(Schedule::Workers).min_worker_frames(size));
+            }
             size *= 2;
         }
+        // Offline, no call has a deadline: every candidate fits.
+        let headroom_pct = if self.offline { f64::INFINITY } else { headroom_pct };
         let mut within: Option<(f64, Plan)> = None;
         let mut lightest: Option<(f64, Plan)> = None;
         for planner in candidates {
@@ -421,9 +462,10 @@ impl Planner {
 
     /// Chooses a block size and latency mode for a latency budget: every power-of-two block from 16 to
     /// 8192 frames whose block latency fits the budget, and zero-latency plans at blocks 16 to 512, are
-    /// planned; the one with the lowest predicted cost (the most CPU headroom) wins. With
-    /// [`auto`](Self::auto), plans whose predicted heaviest call fits the headroom come first (the cheapest
-    /// of them wins; when none fits, the one with the lightest heaviest call). Returns the plan and a
+    /// planned with this planner's schedule choice. Plans whose predicted heaviest call fits the headroom
+    /// (the automatic schedule's, or [`DEFAULT_HEADROOM_PCT`] under a fixed schedule) come first, and the
+    /// cheapest of them wins; when none fits, the one with the lightest heaviest call. Offline
+    /// ([`offline`](Self::offline)) no call has a deadline and the cheapest wins. Returns the plan and a
     /// one-line reason.
     ///
     /// # Errors
@@ -431,6 +473,7 @@ impl Planner {
     pub fn plan_for_latency(&self, budget_frames: usize, ir_frames: usize) -> Result<(Plan, String), PlanError> {
         // (fits the headroom, rank: mean cost when it fits, heaviest call when it does not, heaviest, plan)
         let mut best: Option<(bool, f64, f64, Plan)> = None;
+        let headroom = self.auto_headroom_pct.unwrap_or(DEFAULT_HEADROOM_PCT);
         let mut consider = |planner: Planner| -> Result<(), PlanError> {
             let plan = planner.plan(ir_frames)?;
             let cost = planner.model.plan_cost(&plan, planner.shape);
@@ -442,7 +485,7 @@ impl Planner {
                 planner.sample_rate_hz,
                 host,
             );
-            let fits = planner.auto_headroom_pct.is_none_or(|h| worst <= h);
+            let fits = planner.offline || worst <= headroom;
             let rank = if fits { cost } else { worst };
             let better = match &best {
                 None => true,
@@ -475,7 +518,7 @@ impl Planner {
                 plan.latency_frames()
             )
         };
-        if let Some(headroom) = self.auto_headroom_pct {
+        if !self.offline {
             reason = if fits {
                 format!("{reason} and whose predicted heaviest call ({worst:.1}%) fits the {headroom}% headroom")
             } else {

@@ -62,6 +62,42 @@ pub fn padded(input: &[Vec<f32>], total: usize) -> Vec<Vec<f32>> {
         .collect()
 }
 
+/// The planner's default, automatic schedule (`Planner::new()`, default headroom) for an engine of
+/// `shape` called every `host` frames, costed for a machine 100 times slower than the flop model's so that
+/// even the short IRs of tests need levels out of the callback; checked to have some.
+pub fn auto_plan(zero: bool, ir_frames: usize, block: usize, shape: partita_core::Shape, host: usize) -> Plan {
+    let slow = partita_core::CostModel::Flops { flops_per_second: 24e7 };
+    let plan = partita_core::Planner::new()
+        .block_frames(block)
+        .zero_latency(zero)
+        .shape(shape)
+        .cost_model(slow)
+        .host_period_frames(host)
+        .plan(ir_frames)
+        .unwrap();
+    assert!(plan.levels.iter().any(|l| l.schedule != partita_core::Schedule::Sync), "auto: {plan:?}");
+    plan
+}
+
+/// `Some(schedule)`'s plan from [`scheduled_plan`], or `None`'s from [`auto_plan`] (called every block).
+pub fn plan_for_choice(
+    choice: Option<partita_core::Schedule>,
+    zero: bool,
+    ir_frames: usize,
+    block: usize,
+    shape: partita_core::Shape,
+) -> Plan {
+    match choice {
+        Some(s) => scheduled_plan(s, zero, ir_frames, block),
+        None => auto_plan(zero, ir_frames, block, shape, block),
+    }
+}
+
+/// A schedule choice's name: the schedule's, or `auto`.
+pub fn choice_name(choice: Option<partita_core::Schedule>) -> &'static str {
+    choice.map_or("auto", |s| s.as_str())
+}
+
 /// A plan from the optimal planner with `schedule` for the levels above the block (sliced and worker
 /// levels allowed at any size), checked to use that schedule.
 pub fn scheduled_plan(schedule: partita_core::Schedule, zero: bool, ir_frames: usize, block: usize) -> Plan {
