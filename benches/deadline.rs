@@ -24,7 +24,7 @@
 //! `sliced`, `workers` and `auto`; three interleaved rounds per cell, the median of the rounds' heaviest
 //! phases against the prediction: the verdict asks 1 <= predicted / measured <= 3 in every cell.
 //!
-//! Full run (`cargo bench --bench deadline`): about 15 minutes on a 2-core machine. Quick mode (`cargo
+//! Full run (`cargo bench --bench deadline`): about 20 minutes on a 2-core machine. Quick mode (`cargo
 //! test --benches`, or `PARTITA_BENCH_QUICK=1`): one cell per part for 0.3 s, no verdicts.
 //! `PARTITA_DEADLINE_PARTS=1,3` runs a subset of the parts.
 //!
@@ -113,12 +113,14 @@ fn true_stereo_ir(seconds: f64, seed: u64) -> ImpulseResponse {
     ImpulseResponse::new(channels, RATE_HZ).expect("synthetic taps are finite and non-empty")
 }
 
-/// Seconds of audio for a model-grid run: at least 2 s and four periods of the plan's largest level.
+/// Seconds of audio for a model-grid run: at least 3 s and ten periods of the plan's largest level, so every
+/// position's median is over ten callbacks or more (with fewer, the largest of hundreds of position
+/// medians reads high on a noisy machine).
 fn grid_seconds(quick: bool, plan: &Plan) -> f64 {
     if quick {
         0.3
     } else {
-        (4.0 * plan.max_level_frames() as f64 / f64::from(RATE_HZ)).max(2.0)
+        (10.0 * plan.max_level_frames() as f64 / f64::from(RATE_HZ)).max(3.0)
     }
 }
 

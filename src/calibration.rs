@@ -18,8 +18,13 @@ fn cache_path(kernel: Kernel) -> Option<PathBuf> {
     let base = std::env::var_os("XDG_CACHE_HOME")
         .map(PathBuf::from)
         .or_else(|| std::env::var_os("HOME").map(|h| PathBuf::from(h).join(".cache")))?;
-    Some(base.join("partita").join(format!("machine-costs-{}-{}.json", env!("CARGO_PKG_VERSION"), kernel.name())))
+    let name = format!("machine-costs-{}-m{CALIBRATION_METHOD}-{}.json", env!("CARGO_PKG_VERSION"), kernel.name());
+    Some(base.join("partita").join(name))
 }
+
+/// The calibration method's number, in the cache file's name: a new method never reads an old cache.
+/// 2: the least of five batch means per measurement (1: one mean over all repetitions).
+const CALIBRATION_METHOD: u32 = 2;
 
 /// Costs for this machine: read from the cache when present, else measured (well under a second) and
 /// cached. `fresh` forces a new measurement. A cache that cannot be read or written is ignored.

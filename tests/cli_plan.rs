@@ -36,12 +36,21 @@ fn json_has_the_documented_keys() {
 
 #[test]
 fn zero_latency_and_schedules_show_in_the_plan() {
-    let v = plan_json(&["--ir-seconds", "2", "--block", "128", "--zero-latency", "--schedule", "workers"]);
+    let zero_workers = ["--ir-seconds", "2", "--block", "128", "--zero-latency", "--schedule", "workers"];
+    let v = plan_json(&[&zero_workers[..], &["--min-worker-frames", "0"]].concat());
     assert_eq!(v["latency_frames"], 0);
     assert_eq!(v["head_frames"], 128);
     let levels = v["levels"].as_array().unwrap();
     assert_eq!(levels[0]["schedule"], "sync");
     assert!(levels.iter().skip(1).all(|l| l["schedule"] == "workers"), "{levels:?}");
+    // By default a worker level is at least the host period plus 20 ms of audio: 128 + 960 frames here.
+    let v = plan_json(&zero_workers);
+    let levels = v["levels"].as_array().unwrap();
+    for l in levels {
+        let n = l["block_frames"].as_u64().unwrap();
+        assert_eq!(l["schedule"], if n < 1088 { "sync" } else { "workers" }, "{levels:?}");
+    }
+    assert!(levels.iter().any(|l| l["schedule"] == "workers"), "{levels:?}");
     // --min-worker-frames keeps the smaller levels in the callback.
     let v = plan_json(&["--ir-seconds", "10", "--block", "64", "--schedule", "workers", "--min-worker-frames", "1024"]);
     let levels = v["levels"].as_array().unwrap();

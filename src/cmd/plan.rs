@@ -39,9 +39,10 @@ pub struct PlanArgs {
     #[command(flatten)]
     schedule: super::ScheduleArgs,
     /// With --schedule workers: levels below this many frames stay in the callback (lower mean load,
-    /// longer callbacks when such a level completes); 0 puts every level above the block on a worker.
-    #[arg(long, value_name = "N", default_value_t = 0)]
-    min_worker_frames: usize,
+    /// longer callbacks when such a level completes); 0 puts every level above the block on a worker
+    /// [default: the host period plus 20 ms of audio, 1024 frames at 48 kHz and block 64].
+    #[arg(long, value_name = "N")]
+    min_worker_frames: Option<usize>,
     /// Frames the host passes per call (its period), when more than one block: worker levels are kept at
     /// least twice as long, and --measure calls the engine with this many frames [default: one block].
     #[arg(long, value_name = "N")]
@@ -157,12 +158,15 @@ pub fn run(args: PlanArgs) -> CmdResult {
     let planner = Planner::new()
         .block_frames(args.block.unwrap_or(64))
         .zero_latency(args.zero_latency)
-        .min_worker_frames(args.min_worker_frames)
         .min_sliced_frames(args.min_sliced_frames)
         .mode(if args.uniform { PlanMode::Uniform } else { PlanMode::Optimal })
         .cost_model(model.clone())
         .shape(shape);
     let planner = args.schedule.apply(planner, rate)?.offline(args.offline);
+    let planner = match args.min_worker_frames {
+        Some(n) => planner.min_worker_frames(n),
+        None => planner,
+    };
     if args.host_period == Some(0) {
         return Err("--host-period must be at least 1 frame".into());
     }

@@ -54,9 +54,10 @@ pub use ir::ImpulseResponse;
 pub use kernel::Kernel;
 pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};
 pub use plan::cost::{
-    CostModel, MachineCosts, Shape, COPY_SECONDS_PER_SAMPLE, PACED_FACTOR, SLICED_OVERHEAD, SLICE_SECONDS, WAKE_SECONDS,
+    CostModel, MachineCosts, Shape, CALL_SECONDS, COPY_SECONDS_PER_SAMPLE, PACED_FACTOR_LARGE, PACED_FACTOR_SMALL,
+    PACED_LARGE_FRAMES, PACED_SMALL_FRAMES, SLICED_OVERHEAD, SLICE_SECONDS, WAKE_SECONDS,
 };
-pub use plan::planner::{PlanMode, Planner, AUTO_WORKER_SLACK_SECONDS, DEFAULT_HEADROOM_PCT};
+pub use plan::planner::{PlanMode, Planner, DEFAULT_HEADROOM_PCT, WORKER_SLACK_SECONDS};
 pub use plan::{Level, Plan, Schedule};
 pub use platform::{process_cpu_seconds, thread_cpu_seconds};
 #[cfg(feature = "test-hooks")]

@@ -1,8 +1,8 @@
 //! The optimal planner against exhaustive search, the uniform plan and the doubling plan.
 
 use partita_core::{
-    CostModel, Level, MachineCosts, Plan, PlanMode, Planner, Schedule, Shape, AUTO_WORKER_SLACK_SECONDS,
-    DEFAULT_HEADROOM_PCT,
+    CostModel, Level, MachineCosts, Plan, PlanMode, Planner, Schedule, Shape, DEFAULT_HEADROOM_PCT,
+    WORKER_SLACK_SECONDS,
 };
 
 /// Candidate sizes in blocks, as the planner documents them: 2^k and 3 * 2^k up to `cap`.
@@ -253,22 +253,26 @@ fn small_levels_stay_in_the_callback_under_workers() {
         }
         assert!(plan.levels.iter().any(|l| l.schedule == Schedule::Workers), "min {min}: {:?}", plan.levels);
     }
-    // The default is 0: every level above the block on a worker.
-    let default = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(480_000).unwrap();
+    // The default is the host period plus WORKER_SLACK_SECONDS: 64 + 960 = 1024 frames at 48 kHz.
+    let planner = Planner::new().block_frames(64).schedule(Schedule::Workers);
+    assert_eq!(planner.worker_floor_frames(), 1024);
+    assert_eq!(planner.clone().sample_rate_hz(96_000).worker_floor_frames(), 64 + 1920);
+    assert_eq!(planner.clone().host_period_frames(256).worker_floor_frames(), 256 + 960);
+    let default = planner.plan(480_000).unwrap();
     let explicit =
-        Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0).plan(480_000).unwrap();
+        Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(1024).plan(480_000).unwrap();
     assert_eq!(default, explicit);
 }
 
 /// The host period keeps short levels off the workers: with calls of 1024 frames at block 64, every
 /// `workers` level is at least 2048 frames and the shorter ones run `sync` (a job released in one call
-/// must be collected at least two calls later). Without a host period (one block) the S1 plan keeps worker
-/// levels shorter than that. The engine refuses a plan that breaks the rule for the period it is told,
+/// must be collected at least two calls later). Without a host period (one block) and with every level
+/// allowed on a worker, the S1 plan keeps worker levels shorter than that. The engine refuses a plan that breaks the rule for the period it is told,
 /// and says what to do.
 #[test]
 fn the_host_period_keeps_short_levels_off_the_workers() {
     use partita_core::{Engine, EngineError, EngineOptions, ImpulseResponse, Routing};
-    let planner = Planner::new().block_frames(64).schedule(Schedule::Workers);
+    let planner = Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0);
     let per_block = planner.clone().plan(480_000).unwrap();
     let workers = |p: &Plan| -> Vec<usize> {
         p.levels.iter().filter(|l| l.schedule == Schedule::Workers).map(|l| l.block_frames).collect()
@@ -287,7 +291,7 @@ fn the_host_period_keeps_short_levels_off_the_workers() {
     );
 
     let ir = ImpulseResponse::new(vec![vec![0.5; 48_000]], 48_000).unwrap();
-    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).plan(48_000).unwrap();
+    let plan = Planner::new().block_frames(64).schedule(Schedule::Workers).min_worker_frames(0).plan(48_000).unwrap();
     let smallest = *workers(&plan).iter().min().unwrap();
     let options = EngineOptions { host_period_frames: Some(smallest), ..EngineOptions::new(smallest) };
     let err = Engine::with_options(&plan, &ir, Routing::Mono, options).unwrap_err();
@@ -309,8 +313,8 @@ fn auto_picks_the_cheapest_plan_within_the_headroom() {
     let worst = |p: &Plan| model.heaviest_call_pct(p, stereo, stereo.groups(), 48_000.0, 64);
     let mean = |p: &Plan| model.plan_cost(p, stereo);
     // The workers plan keeps levels under 1024 frames in the callback, as auto does (64 frames of host
-    // period plus AUTO_WORKER_SLACK_SECONDS at 48 kHz).
-    let floor = 64 + (AUTO_WORKER_SLACK_SECONDS * 48_000.0).ceil() as usize;
+    // period plus WORKER_SLACK_SECONDS at 48 kHz).
+    let floor = 64 + (WORKER_SLACK_SECONDS * 48_000.0).ceil() as usize;
     assert_eq!(floor, 1024);
     let singles: Vec<Plan> = [Schedule::Sync, Schedule::Sliced, Schedule::Workers]
         .map(|s| base.clone().schedule(s).min_worker_frames(floor).plan(480_000).unwrap())
@@ -367,7 +371,7 @@ fn the_default_planner_chooses_its_schedules() {
     assert!(default.levels.iter().any(|l| l.schedule != Schedule::Sync), "{:?}", default.levels);
 }
 
-/// Auto never gives a worker less than `AUTO_WORKER_SLACK_SECONDS` beyond one host period, whatever the
+/// Auto never gives a worker less than `WORKER_SLACK_SECONDS` beyond one host period, whatever the
 /// machine: here a model 100 times slower than the flop model's, which pushes every level it can off the
 /// callback.
 #[test]
@@ -382,7 +386,7 @@ fn auto_keeps_short_levels_off_the_workers() {
                 .host_period_frames(host)
                 .plan(10 * rate as usize)
                 .unwrap();
-            let floor = host as f64 + AUTO_WORKER_SLACK_SECONDS * f64::from(rate);
+            let floor = host as f64 + WORKER_SLACK_SECONDS * f64::from(rate);
             for l in plan.levels.iter().filter(|l| l.schedule == Schedule::Workers) {
                 assert!(l.block_frames as f64 >= floor, "{rate} Hz, host {host}: {:?}", plan.levels);
             }

@@ -35,7 +35,8 @@ pub struct Planner {
     shape: Shape,
     max_level_frames: usize,
     min_sliced_frames: usize,
-    min_worker_frames: usize,
+    /// `None`: the slack floor ([`WORKER_SLACK_SECONDS`]).
+    min_worker_frames: Option<usize>,
     host_period_frames: Option<usize>,
     /// `Some(headroom %)`: choose the schedules ([`auto`](Planner::auto)); the default.
     auto_headroom_pct: Option<f64>,
@@ -48,13 +49,16 @@ pub struct Planner {
 /// the model's error (predicted over measured is 0.9-2 on the benchmarked grid, docs/benchmarks/latency.md).
 pub const DEFAULT_HEADROOM_PCT: f64 = 8.0;
 
-/// The automatic schedule puts a level on a worker only when the worker has at least this long beyond one
+/// The planner puts a level on a worker (the automatic schedule, and `workers` unless
+/// [`Planner::min_worker_frames`] says otherwise) only when the worker has at least this long beyond one
 /// host period to deliver (N - H >= 20 ms of audio; N >= 1024 frames at 48 kHz with one-block calls of 64).
 /// A worker is an ordinary thread, and an OS, or a virtual machine's host, can hold one off for
 /// milliseconds; a worker level of a few blocks misses its result whenever that happens. Seen here: the
 /// paced test (tests/paced.rs, one-block calls at block 64, a 2-core VM busy compiling) counted a late
-/// result from an automatic plan with a 256-frame worker level (5.3 ms period) before this floor.
-pub const AUTO_WORKER_SLACK_SECONDS: f64 = 0.020;
+/// result from an automatic plan with a 256-frame worker level (5.3 ms period) before this floor, and the
+/// deadline bench's all-`workers` plans with levels from 256 frames had 1-16 late results in 20 s paced
+/// runs (docs/benchmarks/deadline.md).
+pub const WORKER_SLACK_SECONDS: f64 = 0.020;
 
 impl Default for Planner {
     fn default() -> Self {
@@ -82,7 +86,7 @@ impl Planner {
             shape: Shape::MONO,
             max_level_frames: 1 << 16,
             min_sliced_frames: 2048,
-            min_worker_frames: 0,
+            min_worker_frames: None,
             host_period_frames: None,
             auto_headroom_pct: Some(DEFAULT_HEADROOM_PCT),
             sample_rate_hz: 48_000.0,
@@ -152,16 +156,26 @@ impl Planner {
         self
     }
 
-    /// With the `workers` schedule, levels smaller than this stay `sync` (default 0: every level above
-    /// the block goes to a worker). Keeping small levels in the callback saves a worker wake-up per level
-    /// period and the larger offset a worker level needs (s >= 2N - B instead of N - B), which costs
-    /// extra partitions below it, so the mean load drops; but every callback that completes such a level
-    /// carries its whole job, so the callback-time tail grows. The measured trade-off (S1, paced, `partita
-    /// plan --min-worker-frames`) is in docs/benchmarks/log.md.
+    /// With the `workers` schedule, levels smaller than this stay `sync`. Default: the host period plus
+    /// [`WORKER_SLACK_SECONDS`] of audio (1024 frames at 48 kHz with calls of 64), so no worker level is
+    /// short enough for an ordinary OS delay to make it late; 0 puts every level above the block on a
+    /// worker (as tests do on purpose). Keeping small levels in the callback also saves a worker wake-up
+    /// per level period and the larger offset a worker level needs (s >= 2N - B instead of N - B), which
+    /// costs extra partitions below it, so the mean load drops; but every callback that completes such a
+    /// level carries its whole job, so the callback-time tail grows. The measured trade-off (S1, paced,
+    /// `partita plan --min-worker-frames`) is in docs/benchmarks/log.md. Levels shorter than twice the host
+    /// period never go to a worker ([`host_period_frames`](Self::host_period_frames)).
     #[must_use = "a builder method returns the changed planner"]
     pub fn min_worker_frames(mut self, frames: usize) -> Self {
-        self.min_worker_frames = frames;
+        self.min_worker_frames = Some(frames);
         self
+    }
+
+    /// The smallest level the `workers` schedule puts on a worker: [`min_worker_frames`](Self::min_worker_frames)
+    /// or its default, the host period plus [`WORKER_SLACK_SECONDS`] of audio.
+    pub fn worker_floor_frames(&self) -> usize {
+        let host = self.host_period_frames.unwrap_or(self.block_frames).max(self.block_frames);
+        self.min_worker_frames.unwrap_or(host + (WORKER_SLACK_SECONDS * self.sample_rate_hz).ceil() as usize)
     }
 
     /// The number of frames the host passes per call (its period), when it is more than one engine block:
@@ -230,7 +244,7 @@ impl Planner {
             _ if level_block_frames == self.block_frames => Schedule::Sync,
             Schedule::Sliced if level_block_frames < self.min_sliced_frames => Schedule::Sync,
             Schedule::Workers
-                if level_block_frames < self.min_worker_frames
+                if level_block_frames < self.worker_floor_frames()
                     || level_block_frames < min_worker_level_frames(self.block_frames, self.host_period_frames) =>
             {
                 Schedule::Sync
@@ -264,7 +278,7 @@ impl Planner {
         let host = self.host_period_frames.unwrap_or(self.block_frames).max(1);
         let mut candidates = vec![fixed.clone().schedule(Schedule::Sync)];
         let mut size = 2 * self.block_frames;
-        let worker_floor = host + (AUTO_WORKER_SLACK_SECONDS * self.sample_rate_hz).ceil() as usize;
+        let worker_floor = Self { min_worker_frames: None, ..self.clone() }.worker_floor_frames();
         while size <= self.max_level_frames {
             candidates.push(fixed.clone().schedule(Schedule::Sliced).min_sliced_frames(size));
             if !self.offline && size >= worker_floor {
