@@ -55,7 +55,7 @@ pub use kernel::Kernel;
 pub use level::workers::{live_worker_threads, Lateness, LATE_SPIN};
 pub use plan::cost::{
     CostModel, MachineCosts, Shape, CALL_SECONDS, COPY_SECONDS_PER_SAMPLE, PACED_FACTOR_LARGE, PACED_FACTOR_SMALL,
-    PACED_LARGE_FRAMES, PACED_SMALL_FRAMES, SLICED_OVERHEAD, SLICE_SECONDS, WAKE_SECONDS,
+    PACED_LARGE_FRAMES, PACED_SMALL_FRAMES, SLICED_MEAN_OVERHEAD, SLICED_OVERHEAD, SLICE_SECONDS, WAKE_SECONDS,
 };
 pub use plan::planner::{PlanMode, Planner, DEFAULT_HEADROOM_PCT, WORKER_SLACK_SECONDS};
 pub use plan::{Level, Plan, Schedule};

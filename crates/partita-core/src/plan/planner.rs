@@ -292,7 +292,7 @@ impl Planner {
         let mut lightest: Option<(f64, Plan)> = None;
         for planner in candidates {
             let plan = planner.plan_fixed(ir_frames)?;
-            let mean = self.model.plan_cost(&plan, self.shape);
+            let mean = self.model.scheduled_plan_cost(&plan, self.shape);
             let worst = self.model.heaviest_call_pct(&plan, self.shape, self.shape.groups(), self.sample_rate_hz, host);
             if worst <= headroom_pct && within.as_ref().is_none_or(|(m, _)| mean < *m) {
                 within = Some((mean, plan.clone()));
@@ -490,7 +490,7 @@ impl Planner {
         let headroom = self.auto_headroom_pct.unwrap_or(DEFAULT_HEADROOM_PCT);
         let mut consider = |planner: Planner| -> Result<(), PlanError> {
             let plan = planner.plan(ir_frames)?;
-            let cost = planner.model.plan_cost(&plan, planner.shape);
+            let cost = planner.model.scheduled_plan_cost(&plan, planner.shape);
             let host = planner.host_period_frames.unwrap_or(plan.block_frames);
             let worst = planner.model.heaviest_call_pct(
                 &plan,
