@@ -23,5 +23,7 @@
 #![deny(unsafe_op_in_unsafe_fn)]
 
 pub mod analysis;
+pub mod deconvolve;
 pub mod phrase;
 pub mod room;
+pub mod sweep;

@@ -55,11 +55,18 @@ use std::fmt;
 
 mod bands;
 mod decay;
+mod noise;
+mod report;
 
 pub use bands::{FilterPhase, OctaveBand, OctaveFilter, OCTAVE_RATIO};
 pub use decay::{
     centre_time_s, clarity_db, definition, edt, fit_decay, onset_index, reverberation_time, schroeder_decay_db, t20,
     t30, DecayFit, DecayRange, NOISE_HEADROOM_DB, ONSET_THRESHOLD_DB,
+};
+pub use noise::{lundeby, NoiseFloor};
+pub use report::{
+    analyze, AnalysisOptions, BandAnalysis, ChannelAnalysis, Flag, Measured, Parameter, ENERGY_PARAMETER_RANGE_DB,
+    MIN_BT_FORWARD, MIN_BT_REVERSED, RANGE_HEADROOM_DB,
 };
 
 /// Why an analysis produced no number.
