@@ -297,30 +297,31 @@ pub fn deconvolve(
     let end = (zero + frames - spec.sweep_frames() + 1).min(raws[0].len());
     let l_frames = spec.rate_constant_s() * fs;
 
-    // The linear peak over all channels, in the causal part.
-    let (mut peak, mut peak_at) = (0.0f32, zero);
+    // Per channel: its linear peak in the causal part, then its onset searched after the 2nd harmonic's window
+    // before that peak; the common onset is the earliest.
+    let half_window = (0.5 * l_frames * 2f64.ln()).floor() as usize;
+    let level = 10f64.powf(ONSET_THRESHOLD_DB / 20.0);
+    let mut onset = usize::MAX;
+    let mut search_from = usize::MAX;
     for raw in &raws {
-        for (i, v) in raw[zero..end].iter().enumerate() {
-            if v.abs() > peak {
-                (peak, peak_at) = (v.abs(), zero + i);
-            }
+        let (peak_at, peak) =
+            raw[zero..end]
+                .iter()
+                .enumerate()
+                .fold((zero, 0.0f32), |m, (i, v)| if v.abs() > m.1 { (zero + i, v.abs()) } else { m });
+        if peak == 0.0 {
+            continue;
+        }
+        let from = peak_at.saturating_sub(half_window);
+        let threshold = peak as f64 * level;
+        let at = raw[from..=peak_at].iter().position(|v| v.abs() as f64 >= threshold).map_or(peak_at, |i| from + i);
+        if at < onset {
+            (onset, search_from) = (at, from);
         }
     }
-    if peak == 0.0 {
+    if onset == usize::MAX {
         return Err(DeconvolveError::Silent);
     }
-    // Onset: the earliest over the channels, searched after the 2nd harmonic's window.
-    let search_from = peak_at.saturating_sub((0.5 * l_frames * 2f64.ln()).floor() as usize);
-    let threshold = peak as f64 * 10f64.powf(ONSET_THRESHOLD_DB / 20.0);
-    let onset = raws
-        .iter()
-        .filter_map(|raw| {
-            let own_peak = raw[search_from..=peak_at].iter().fold(0.0f32, |m, v| m.max(v.abs())) as f64;
-            let own_threshold = threshold.min(own_peak * 10f64.powf(ONSET_THRESHOLD_DB / 20.0));
-            raw[search_from..=peak_at].iter().position(|v| v.abs() as f64 >= own_threshold).map(|i| search_from + i)
-        })
-        .min()
-        .unwrap_or(peak_at);
     let margin = (options.pre_onset_ms.max(0.0) * 1e-3 * fs).round() as usize;
     let start = onset.saturating_sub(margin).max(search_from);
 
