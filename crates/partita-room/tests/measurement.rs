@@ -233,7 +233,8 @@ fn lundeby_t30_follows_the_truncation_and_compensation_model() {
 fn values_are_flagged_when_the_range_or_the_filter_is_not_enough() {
     // Our flag rules (analysis::report): a parameter needs its range's depth plus 10 dB (ISO 3382-1's headroom,
     // from memory): with 40 dB of decay above the noise T30 (45 dB) is flagged, T20 (35 dB) is not. A 63 Hz band
-    // with T = 0.1 s has bandwidth x T = 4.4: flagged under causal filtering (< 16), not time-reversed (>= 4).
+    // (bandwidth 44.5 Hz) with T = 0.1 s: the causal filter's ringing lengthens T20 (to about 0.15 s, B x T
+    // about 6.6 < 16: flagged); time-reversed filtering measures about 0.1 s, B x T about 4.5 >= 4: not flagged.
     let fs = 48_000.0;
     let k = 6.0 * LN_10 / 1.0;
     let noise = 10f64.powf(-4.0);
