@@ -101,6 +101,12 @@ pub fn run(args: DeconvolveArgs) -> CmdResult {
         1e3 * d.delay_frames as f64 / fs,
         1e3 * d.onset_frames as f64 / fs
     );
+    if args.trim_tail && !d.tail_trimmed {
+        eprintln!(
+            "warning: --trim-tail: no noise-floor crossing found in every channel (the decay is too short or \
+             too noisy for Lundeby's fit); the tail was kept whole"
+        );
+    }
     let needed = -DecayRange::T30.levels_db().1 + RANGE_HEADROOM_DB;
     for (c, pnr) in d.peak_to_noise_db.iter().enumerate() {
         println!("channel {c}: peak-to-noise ratio {pnr:.1} dB");

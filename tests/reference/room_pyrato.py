@@ -2,9 +2,10 @@
 
 Usage: python room_pyrato.py SAMPLE_RATE OUT.json IN0.f64 [IN1.f64 ...]
 
-Each input is one band-filtered impulse response (raw little-endian float64), filtered by Partita so the
-filter design stays out of the comparison. For each: the energy decay curve with Lundeby's noise handling
-(pyrato.edc.energy_decay_curve_lundeby, channel_independent=True, time_shift=True, normalize=True), then
+Each input is one band-filtered impulse response (raw little-endian float64), filtered by Partita and
+starting at Partita's onset for that band, so the filter design and the onset convention stay out of the
+comparison. For each: the energy decay curve with Lundeby's noise handling
+(pyrato.edc.energy_decay_curve_lundeby, channel_independent=True, time_shift=False, normalize=True), then
 pyrato.parameters.reverberation_time_linear_regression for T20 and T30, and pyrato.parameters.clarity
 (C50, C80), definition (D50) and center_time on that curve. Writes one JSON object per input.
 """
@@ -27,7 +28,7 @@ def main() -> int:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             edc = pyrato.edc.energy_decay_curve_lundeby(
-                sig, channel_independent=True, time_shift=True, normalize=True
+                sig, channel_independent=True, time_shift=False, normalize=True
             )
             row = {}
             for name in ("T20", "T30"):

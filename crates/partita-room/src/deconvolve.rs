@@ -268,6 +268,8 @@ pub struct Deconvolution {
     pub peak_to_noise_db: Vec<f64>,
     /// The harmonic responses asked for (those that fit in the raw response).
     pub harmonics: Vec<Harmonic>,
+    /// Whether the tail was cut at the noise floor (asked for, and a crossing point found in every channel).
+    pub tail_trimmed: bool,
 }
 
 /// Deconvolves every channel of a recording of `spec`'s sweep (module docs), with one onset for all channels
@@ -343,7 +345,8 @@ pub fn deconvolve(
         };
         peak_to_noise_db.push(10.0 * (peak_sq / noise_ms).log10());
     }
-    if options.trim_tail && crossings.len() == raws.len() {
+    let tail_trimmed = options.trim_tail && crossings.len() == raws.len();
+    if tail_trimmed {
         cut_end = crossings.iter().copied().max().unwrap_or(end).clamp(onset + 1, end);
     }
     let channels = raws.iter().map(|raw| raw[start..cut_end].to_vec()).collect();
@@ -362,5 +365,6 @@ pub fn deconvolve(
         delay_frames: onset.saturating_sub(zero),
         peak_to_noise_db,
         harmonics,
+        tail_trimmed,
     })
 }

@@ -149,7 +149,7 @@ pub struct BandAnalysis {
     /// The octave band, `None` for broadband.
     pub band: Option<OctaveBand>,
     /// Onset of the band's response, frames from the channel's first sample (first sample within 20 dB of the
-    /// band's peak).
+    /// band's peak at or after the broadband onset).
     pub onset_frames: usize,
     /// Lundeby's noise floor and crossing point (frames from the onset), when found.
     pub noise: Option<NoiseFloor>,
@@ -199,7 +199,9 @@ pub struct ChannelAnalysis {
 }
 
 /// Analyses one channel of an impulse response: broadband and per band ([`AnalysisOptions`]). Per band: the
-/// onset (first sample within 20 dB of the band's peak, ISO 3382-1), Lundeby's noise floor and crossing point
+/// onset (first sample within 20 dB of the band's peak, ISO 3382-1, searched from the broadband onset on, so
+/// that the ringing a time-reversed or zero-phase filter spreads before the direct sound does not move a band's
+/// time zero earlier), Lundeby's noise floor and crossing point
 /// ([`lundeby`]), the Schroeder curve truncated there with the tail compensation, EDT, T20, T30 by
 /// least-squares fits over the ISO 3382-1 ranges, C50, C80, D50 and centre time from the same compensated
 /// energies, and each value's flags. Allocates.
@@ -218,14 +220,15 @@ pub fn analyze<T: Copy + Into<f64>>(
         Err(AnalysisError::Silent) => vec![0.0; ir.len()],
         Err(e) => return Err(e),
     };
-    let broadband = analyze_band(&h, sample_rate_hz, None, options.phase);
+    let broadband = analyze_band(&h, sample_rate_hz, None, options.phase, 0);
+    let from = broadband.onset_frames;
     let bands = options
         .bands
         .iter()
         .filter(|b| b.upper_edge_hz() < 0.5 * sample_rate_hz)
         .map(|&band| {
             let filter = OctaveFilter::new(band, sample_rate_hz, options.phase).expect("band checked below Nyquist");
-            analyze_band(&filter.process(&h), sample_rate_hz, Some(band), options.phase)
+            analyze_band(&filter.process(&h), sample_rate_hz, Some(band), options.phase, from)
         })
         .collect();
     Ok(ChannelAnalysis { sample_rate_hz, phase: options.phase, broadband, bands })
@@ -244,11 +247,13 @@ fn failed(band: Option<OctaveBand>, e: AnalysisError) -> BandAnalysis {
     }
 }
 
-fn analyze_band(h: &[f64], fs: f64, band: Option<OctaveBand>, phase: FilterPhase) -> BandAnalysis {
-    if h.iter().all(|&v| v == 0.0) {
+/// `search_from`: the band's onset is searched from the broadband onset on (see [`analyze`]).
+fn analyze_band(h: &[f64], fs: f64, band: Option<OctaveBand>, phase: FilterPhase, search_from: usize) -> BandAnalysis {
+    let search_from = search_from.min(h.len());
+    if h[search_from..].iter().all(|&v| v == 0.0) {
         return failed(band, AnalysisError::Silent);
     }
-    let onset = onset_of(h);
+    let onset = search_from + onset_of(&h[search_from..]);
     let h = &h[onset..];
     let (energy, noise, common_flags) = match lundeby(h, fs) {
         Ok(floor) => (compensated_energy(h, &floor, fs), Some(floor), vec![]),
