@@ -603,3 +603,35 @@ fn a_measured_synthetic_room_analyses_like_the_room_itself() {
     eprintln!("peak-to-noise {:.1} dB, delay {} frames", d.peak_to_noise_db[0], d.delay_frames);
     assert!(worst[0] < 0.01 && worst[1] < 0.1, "{worst:?}");
 }
+
+#[test]
+fn a_loud_harmonic_after_time_zero_does_not_move_the_onset() {
+    // ISO 3382-1's onset (the first sample within 20 dB of the peak) searched only after the 2nd harmonic's
+    // window (issue 16): with a loop delay longer than L ln 2 the 2nd harmonic's response lands after time zero
+    // but before the linear one, 9 dB below the peak (y = x + x^2 at 0.7 peak: a quadrature impulse of
+    // 0.7 / 2). A search from time zero would start there; ours must find the linear response's onset, within
+    // the 3 frames a band-limited impulse's main lobe reaches before its peak.
+    let fs = 48_000u32;
+    let spec = SweepSpec {
+        duration_s: 3.0,
+        silence_s: 0.6,
+        level_dbfs: 20.0 * 0.7f64.log10(),
+        ..SweepSpec::new(SweepKind::Synchronized, fs)
+    };
+    let delay = (0.4 * fs as f64) as usize;
+    let l_ln2 = spec.rate_constant_s() * 2f64.ln() * fs as f64;
+    assert!(delay as f64 > l_ln2, "the test needs the harmonic after time zero");
+    let sweep = spec.generate().unwrap();
+    let mut rec = vec![0.0f32; delay];
+    rec.extend(sweep.iter().map(|&x| x + x * x));
+    rec.truncate(sweep.len());
+    let raw = raw_response(&rec, &spec, Method::InverseFilter, 1).unwrap();
+    let zero = spec.sweep_frames() - 1;
+    let harmonic = envelope(&raw[zero..zero + delay - 2000]);
+    let linear_peak = raw[zero..].iter().fold(0.0f32, |m, v| m.max(v.abs())) as f64;
+    let (at, h2) = argmax(&harmonic);
+    eprintln!("2nd harmonic {:.1} dB re. the peak at {at} frames after time zero", 20.0 * (h2 / linear_peak).log10());
+    assert!(h2 > 0.1 * linear_peak, "the harmonic must lie within 20 dB of the peak for this test");
+    let d = deconvolve(&[rec], &spec, &DeconvolveOptions::default()).unwrap();
+    assert!((delay - 3..=delay).contains(&d.delay_frames), "onset {} frames after time zero", d.delay_frames);
+}
