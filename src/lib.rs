@@ -7,5 +7,7 @@ pub use partita_io as io;
 pub use partita_room as room;
 
 pub mod calibration;
+pub mod decay_plot;
 pub mod demo_files;
 pub mod measure;
+pub mod sweep_file;

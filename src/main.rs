@@ -1,5 +1,6 @@
 //! The `partita` command: render files offline, plan a partition for a latency budget, monitor live,
-//! benchmark. Each subcommand lives in its own module and stays thin over the library crates.
+//! measure rooms (sweep, deconvolve, analyze), benchmark. Each subcommand lives in its own module and stays
+//! thin over the library crates.
 
 use std::process::ExitCode;
 
@@ -28,6 +29,12 @@ enum Command {
     Plan(cmd::plan::PlanArgs),
     /// Convolve live: an input device through an IR to an output device (needs the `live` feature).
     Monitor(cmd::monitor::MonitorArgs),
+    /// Write a measurement sweep (WAV) and its sidecar (JSON) to play through a loudspeaker.
+    Sweep(cmd::sweep::SweepArgs),
+    /// Recover an impulse response from a recording of a sweep written by `partita sweep`.
+    Deconvolve(cmd::deconvolve::DeconvolveArgs),
+    /// Room-acoustic parameters of an impulse response per octave band: EDT, T20, T30, C50, C80, D50, Ts.
+    Analyze(cmd::analyze::AnalyzeArgs),
     /// List the audio hosts, their devices and supported configurations (needs the `live` feature).
     Devices(cmd::devices::DevicesArgs),
     /// (Maintainers) Regenerate the synthetic demo IRs and dry phrase of demo-data/.
@@ -42,6 +49,9 @@ fn main() -> ExitCode {
         Command::Plan(args) => cmd::plan::run(args),
         Command::Monitor(args) => cmd::monitor::run(args),
         Command::Devices(args) => cmd::devices::run(args),
+        Command::Sweep(args) => cmd::sweep::run(args),
+        Command::Deconvolve(args) => cmd::deconvolve::run(args),
+        Command::Analyze(args) => cmd::analyze::run(args),
         Command::MakeDemoData(args) => cmd::demo_data::run(args),
     };
     match result {

@@ -1,9 +1,12 @@
 //! One module per subcommand, and the few helpers they share.
 
+pub mod analyze;
+pub mod deconvolve;
 pub mod demo;
 pub mod demo_data;
 pub mod plan;
 pub mod render;
+pub mod sweep;
 
 #[cfg(feature = "live")]
 pub mod devices;

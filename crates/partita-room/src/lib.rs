@@ -1,9 +1,10 @@
 //! # partita-room
 //!
-//! Room acoustics beside the convolution engine: decay analysis of impulse responses (Schroeder curves, EDT,
-//! T20, T30, clarity, definition, centre time), IEC 61260-1 octave bands and filters, synthetic shoebox rooms
-//! rendered as stereo impulse responses, and a dry demo phrase. Pure DSP on slices: no devices, no plotting, no
-//! file I/O, nothing for the audio thread.
+//! Room acoustics beside the convolution engine: measurement sweeps ([`sweep`]) and their deconvolution into
+//! impulse responses ([`deconvolve`]), decay analysis of impulse responses (Schroeder curves, EDT, T20, T30,
+//! clarity, definition, centre time, Lundeby's noise floor, per octave band with flags: [`analysis::analyze`]),
+//! IEC 61260-1 octave bands and filters, synthetic shoebox rooms rendered as stereo impulse responses, and a
+//! dry demo phrase. Pure DSP on slices: no devices, no plotting, no file I/O, nothing for the audio thread.
 //!
 //! ```
 //! use partita_room::analysis::t30;
@@ -23,5 +24,7 @@
 #![deny(unsafe_op_in_unsafe_fn)]
 
 pub mod analysis;
+pub mod deconvolve;
 pub mod phrase;
 pub mod room;
+pub mod sweep;

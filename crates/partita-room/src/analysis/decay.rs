@@ -13,7 +13,7 @@ pub const NOISE_HEADROOM_DB: f64 = 10.0;
 pub const ONSET_THRESHOLD_DB: f64 = -20.0;
 
 /// Converts, checks finiteness and non-silence.
-fn to_f64<T: Copy + Into<f64>>(ir: &[T]) -> Result<Vec<f64>, AnalysisError> {
+pub(crate) fn to_f64<T: Copy + Into<f64>>(ir: &[T]) -> Result<Vec<f64>, AnalysisError> {
     if ir.is_empty() {
         return Err(AnalysisError::Empty);
     }
@@ -53,7 +53,7 @@ pub fn onset_index<T: Copy + Into<f64>>(ir: &[T]) -> Result<usize, AnalysisError
     Ok(onset_of(&h))
 }
 
-fn onset_of(h: &[f64]) -> usize {
+pub(crate) fn onset_of(h: &[f64]) -> usize {
     let peak = h.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     let threshold = peak * 10f64.powf(ONSET_THRESHOLD_DB / 20.0);
     h.iter().position(|v| v.abs() >= threshold).unwrap_or(0)

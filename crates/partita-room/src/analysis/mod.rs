@@ -1,5 +1,6 @@
 //! Room-acoustic analysis of impulse responses: Schroeder decay curves, reverberation times (EDT, T20, T30),
-//! octave-band filters, clarity, definition and centre time.
+//! octave-band filters, clarity, definition and centre time, noise floors (Lundeby) and the whole per-band
+//! analysis of a measured response ([`analyze`]).
 //!
 //! Pure DSP on slices: no I/O, no state between calls. Every function that returns a `Vec` allocates; none of
 //! this belongs on the audio thread.
@@ -29,9 +30,14 @@
 //! square of the last 10% of the response) is less than [`NOISE_HEADROOM_DB`] below the integrated energy at the
 //! bottom of the evaluation range: a floor that close bends the Schroeder curve and lengthens the result. This
 //! is our own conservative check in the spirit of ISO 3382-1's rule that the noise be at least 10 dB below the
-//! bottom of the evaluation range; it is not Lundeby's iterative truncation (Lundeby et al., Acustica 81,
-//! 1995), so trim a measured response to where it meets its noise floor before analysing it. A response that
-//! simply stops before it has decayed enough is refused by the same check.
+//! bottom of the evaluation range. A response that simply stops before it has decayed enough is refused by the
+//! same check.
+//!
+//! For measured responses use [`analyze`] instead: it finds the noise floor and the point where the decay
+//! meets it by Lundeby's iteration (Lundeby et al., Acustica 81, 1995; [`lundeby`]), truncates the Schroeder
+//! sum there and adds the decay's missing tail (compensation), measures every parameter broadband and per
+//! octave band, and flags each value whose band lacks the dynamic range for it or whose band filter rings
+//! about as long as the decay ([`Flag`]).
 //!
 //! ```
 //! use partita_room::analysis::{t30, OctaveBand, OctaveFilter, FilterPhase};
@@ -55,11 +61,18 @@ use std::fmt;
 
 mod bands;
 mod decay;
+mod noise;
+mod report;
 
 pub use bands::{FilterPhase, OctaveBand, OctaveFilter, OCTAVE_RATIO};
 pub use decay::{
     centre_time_s, clarity_db, definition, edt, fit_decay, onset_index, reverberation_time, schroeder_decay_db, t20,
     t30, DecayFit, DecayRange, NOISE_HEADROOM_DB, ONSET_THRESHOLD_DB,
+};
+pub use noise::{lundeby, NoiseFloor};
+pub use report::{
+    analyze, AnalysisOptions, BandAnalysis, ChannelAnalysis, Flag, Measured, Parameter, ENERGY_PARAMETER_RANGE_DB,
+    MIN_BT_FORWARD, MIN_BT_REVERSED, RANGE_HEADROOM_DB,
 };
 
 /// Why an analysis produced no number.
