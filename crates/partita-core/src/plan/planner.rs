@@ -42,6 +42,12 @@ pub struct Planner {
     auto_headroom_pct: Option<f64>,
     sample_rate_hz: f64,
     offline: bool,
+    /// Under `sliced`, levels from this size on go to workers instead (the automatic schedule's mixed
+    /// candidates; the worker rules still apply).
+    workers_from_frames: Option<usize>,
+    /// The automatic schedule also tries the mixed sliced-then-workers candidates (off while
+    /// [`plan_for_latency`](Planner::plan_for_latency) scans block sizes, on for its final plan).
+    auto_mixed: bool,
 }
 
 /// The share of a host call's deadline, in percent, that the automatic schedule lets the predicted
@@ -91,6 +97,8 @@ impl Planner {
             auto_headroom_pct: Some(DEFAULT_HEADROOM_PCT),
             sample_rate_hz: 48_000.0,
             offline: false,
+            workers_from_frames: None,
+            auto_mixed: true,
         }
     }
 
@@ -117,6 +125,7 @@ impl Planner {
     pub fn schedule(mut self, schedule: Schedule) -> Self {
         self.schedule = schedule;
         self.auto_headroom_pct = None;
+        self.workers_from_frames = None;
         self
     }
 
@@ -197,8 +206,9 @@ impl Planner {
         self
     }
 
-    /// Chooses the schedules itself: among plans with every level in the callback (`sync`), and plans that
-    /// put the levels from a size on up on `sliced` or on `workers` (each size the optimal mode may use),
+    /// Chooses the schedules itself: among plans with every level in the callback (`sync`), plans that put
+    /// the levels from a size on up on `sliced` or on `workers` (each power-of-two multiple of the block the
+    /// optimal mode may use), and plans with `sliced` levels from one size and `workers` from a larger one,
     /// the one with the lowest mean cost whose predicted heaviest host call
     /// ([`CostModel::heaviest_call_pct`]) stays within `headroom_pct` percent of the call's deadline; when
     /// none does, the one with the lightest heaviest call. The host period and the sample rate set the
@@ -242,6 +252,13 @@ impl Planner {
     fn schedule_for(&self, level_block_frames: usize) -> Schedule {
         match self.schedule {
             _ if level_block_frames == self.block_frames => Schedule::Sync,
+            Schedule::Sliced
+                if self.workers_from_frames.is_some_and(|w| level_block_frames >= w)
+                    && level_block_frames >= self.worker_floor_frames()
+                    && level_block_frames >= min_worker_level_frames(self.block_frames, self.host_period_frames) =>
+            {
+                Schedule::Workers
+            }
             Schedule::Sliced if level_block_frames < self.min_sliced_frames => Schedule::Sync,
             Schedule::Workers
                 if level_block_frames < self.worker_floor_frames()
@@ -277,14 +294,20 @@ impl Planner {
         let fixed = Self { auto_headroom_pct: None, ..self.clone() };
         let host = self.host_period_frames.unwrap_or(self.block_frames).max(1);
         let mut candidates = vec![fixed.clone().schedule(Schedule::Sync)];
-        let mut size = 2 * self.block_frames;
         let worker_floor = Self { min_worker_frames: None, ..self.clone() }.worker_floor_frames();
-        while size <= self.max_level_frames {
+        let sizes: Vec<usize> = std::iter::successors(Some(2 * self.block_frames), |s| Some(s * 2))
+            .take_while(|&s| s <= self.max_level_frames)
+            .collect();
+        for &size in &sizes {
             candidates.push(fixed.clone().schedule(Schedule::Sliced).min_sliced_frames(size));
             if !self.offline && size >= worker_floor {
                 candidates.push(fixed.clone().schedule(Schedule::Workers).min_worker_frames(size));
+                // Mixed: sliced from a smaller size on, workers from this one.
+                for &sliced in sizes.iter().filter(|&&s| self.auto_mixed && s < size) {
+                    let mixed = fixed.clone().schedule(Schedule::Sliced).min_sliced_frames(sliced);
+                    candidates.push(Self { workers_from_frames: Some(size), ..mixed.min_worker_frames(size) });
+                }
             }
-            size *= 2;
         }
         // Offline, no call has a deadline: every candidate fits.
         let headroom_pct = if self.offline { f64::INFINITY } else { headroom_pct };
@@ -488,6 +511,9 @@ impl Planner {
         // (fits the headroom, rank: mean cost when it fits, heaviest call when it does not, heaviest, plan)
         let mut best: Option<(bool, f64, f64, Plan)> = None;
         let headroom = self.auto_headroom_pct.unwrap_or(DEFAULT_HEADROOM_PCT);
+        // Every block is judged by its plan without the mixed candidates (each costs a planning pass); the
+        // winner is then planned with them too (below), which can only make it cheaper within the headroom.
+        let scan = Self { auto_mixed: false, ..self.clone() };
         let mut consider = |planner: Planner| -> Result<(), PlanError> {
             let plan = planner.plan(ir_frames)?;
             let cost = planner.model.scheduled_plan_cost(&plan, planner.shape);
@@ -513,13 +539,22 @@ impl Planner {
         for k in 4..=13 {
             let b = 1usize << k;
             if b <= budget_frames {
-                consider(self.clone().block_frames(b).zero_latency(false))?;
+                consider(scan.clone().block_frames(b).zero_latency(false))?;
             }
         }
         for k in 4..=9 {
-            consider(self.clone().block_frames(1 << k).zero_latency(true))?;
+            consider(scan.clone().block_frames(1 << k).zero_latency(true))?;
         }
-        let (fits, _, worst, plan) = best.ok_or(PlanError::IrFramesZero)?;
+        let (fits, _, mut worst, mut plan) = best.ok_or(PlanError::IrFramesZero)?;
+        if self.auto_headroom_pct.is_some() && fits {
+            let full = self.clone().block_frames(plan.block_frames).zero_latency(plan.zero_latency).plan(ir_frames)?;
+            let host = self.host_period_frames.unwrap_or(full.block_frames);
+            let full_worst =
+                self.model.heaviest_call_pct(&full, self.shape, self.shape.groups(), self.sample_rate_hz, host);
+            if self.offline || full_worst <= headroom {
+                (plan, worst) = (full, full_worst);
+            }
+        }
         let mut reason = if plan.zero_latency {
             format!(
                 "zero latency at block {}: no block-latency plan within {budget_frames} frames costs less",
