@@ -12,13 +12,9 @@ fn demo_data() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data")
 }
 
+/// A fresh, empty scratch folder for one test.
 fn scratch(name: &str) -> PathBuf {
-    let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("cli-demo").join(name);
-    if dir.exists() {
-        std::fs::remove_dir_all(&dir).unwrap();
-    }
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
+    partita_testkit::scratch_dir(env!("CARGO_TARGET_TMPDIR"), "cli-demo", name)
 }
 
 fn partita(args: &[&str]) -> Output {

@@ -13,12 +13,7 @@ use partita_io::{read_wav, read_wav_info, write_wav, Dither, SampleFormat};
 
 /// A fresh, empty scratch folder for one test.
 fn scratch(name: &str) -> PathBuf {
-    let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("cli-render").join(name);
-    if dir.exists() {
-        std::fs::remove_dir_all(&dir).unwrap();
-    }
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
+    partita_testkit::scratch_dir(env!("CARGO_TARGET_TMPDIR"), "cli-render", name)
 }
 
 fn partita(args: &[&Path]) -> Output {

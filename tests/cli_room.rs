@@ -14,13 +14,9 @@ use partita_core::{ImpulseResponse, Routing, Shape};
 use partita_io::{read_wav, write_wav, Dither, SampleFormat};
 use partita_room::sweep::fnv1a64_f32;
 
+/// A fresh, empty scratch folder for one test.
 fn scratch(name: &str) -> PathBuf {
-    let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("cli-room").join(name);
-    if dir.exists() {
-        std::fs::remove_dir_all(&dir).unwrap();
-    }
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
+    partita_testkit::scratch_dir(env!("CARGO_TARGET_TMPDIR"), "cli-room", name)
 }
 
 fn partita(args: &[&str]) -> Output {

@@ -159,3 +159,17 @@ pub fn reference_python(what: &str) -> Option<std::path::PathBuf> {
         }
     }
 }
+
+/// A fresh, empty scratch folder `root/group/name` for one test (emptied when it exists). Tests pass
+/// `env!("CARGO_TARGET_TMPDIR")` as `root`, so the folders stay under `target/`.
+///
+/// # Panics
+/// When the folder cannot be emptied or created.
+pub fn scratch_dir(root: &str, group: &str, name: &str) -> std::path::PathBuf {
+    let dir = std::path::PathBuf::from(root).join(group).join(name);
+    if dir.exists() {
+        std::fs::remove_dir_all(&dir).unwrap_or_else(|e| panic!("cannot empty {}: {e}", dir.display()));
+    }
+    std::fs::create_dir_all(&dir).unwrap_or_else(|e| panic!("cannot create {}: {e}", dir.display()));
+    dir
+}
