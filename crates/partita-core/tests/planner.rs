@@ -377,14 +377,14 @@ fn the_default_planner_chooses_its_schedules() {
 #[test]
 fn auto_keeps_short_levels_off_the_workers() {
     let slow = CostModel::Flops { flops_per_second: 24e7 };
-    for rate in [44_100u32, 48_000, 96_000] {
-        for host in [32usize, 64, 256, 1024] {
+    for rate in [44_100u32, 96_000] {
+        for host in [64usize, 1024] {
             let plan = Planner::new()
-                .block_frames(32)
+                .block_frames(64)
                 .cost_model(slow.clone())
                 .sample_rate_hz(rate)
                 .host_period_frames(host)
-                .plan(10 * rate as usize)
+                .plan(5 * rate as usize)
                 .unwrap();
             let floor = host as f64 + WORKER_SLACK_SECONDS * f64::from(rate);
             for l in plan.levels.iter().filter(|l| l.schedule == Schedule::Workers) {
