@@ -61,16 +61,29 @@ pub fn write_svg(path: &Path, channels: &[ChannelAnalysis], energy_db: &[Vec<Vec
                 .map_err(|e| err(&e))?;
             chart.configure_mesh().x_desc("s").y_desc("dB").draw().map_err(|e| err(&e))?;
             let clamp = |v: f64| if v.is_finite() { v.max(FLOOR_DB) } else { FLOOR_DB };
+            // The first panel carries the legend for all of them.
+            let legend = ci == 0 && bi == 0;
+            let grey = RGBColor(170, 170, 170);
             if let Some(energy) = energy_db.get(ci).and_then(|c| c.get(bi)) {
                 let step = SMOOTH_S;
                 let pts = energy.iter().enumerate().map(|(i, &v)| (i as f64 * step, clamp(v)));
-                chart.draw_series(LineSeries::new(pts, RGBColor(170, 170, 170))).map_err(|e| err(&e))?;
+                let drawn = chart.draw_series(LineSeries::new(pts, grey)).map_err(|e| err(&e))?;
+                if legend {
+                    drawn
+                        .label("energy, 10 ms mean")
+                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], grey));
+                }
             }
             if let Some(noise) = b.noise {
                 let level = clamp(noise.level_db);
-                chart
+                let drawn = chart
                     .draw_series(DashedLineSeries::new(vec![(0.0, level), (t_end, level)], 6, 4, BLACK.stroke_width(1)))
                     .map_err(|e| err(&e))?;
+                if legend {
+                    drawn
+                        .label("noise floor (dotted: crossing point)")
+                        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], BLACK));
+                }
                 let tc = noise.crossing_frames as f64 / fs;
                 chart
                     .draw_series(DashedLineSeries::new(vec![(tc, FLOOR_DB), (tc, 5.0)], 2, 3, BLACK.stroke_width(1)))
@@ -78,17 +91,37 @@ pub fn write_svg(path: &Path, channels: &[ChannelAnalysis], energy_db: &[Vec<Vec
             }
             let stride = (b.edc_db.len() / 600).max(1);
             let edc = b.edc_db.iter().enumerate().step_by(stride).map(|(i, &v)| (i as f64 / fs, clamp(v)));
-            chart.draw_series(LineSeries::new(edc, BLUE.stroke_width(2))).map_err(|e| err(&e))?;
-            for (p, color) in [
-                (Parameter::Edt, RGBColor(230, 140, 0)),
-                (Parameter::T20, RGBColor(0, 150, 0)),
-                (Parameter::T30, RGBColor(210, 0, 0)),
+            let drawn = chart.draw_series(LineSeries::new(edc, BLUE.stroke_width(2))).map_err(|e| err(&e))?;
+            if legend {
+                drawn
+                    .label("Schroeder decay, compensated")
+                    .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], BLUE.stroke_width(2)));
+            }
+            for (p, name, color) in [
+                (Parameter::Edt, "EDT fit", RGBColor(230, 140, 0)),
+                (Parameter::T20, "T20 fit", RGBColor(0, 150, 0)),
+                (Parameter::T30, "T30 fit", RGBColor(210, 0, 0)),
             ] {
                 if let Some(fit) = b.get(p).fit {
                     let y = |t: f64| fit.intercept_db + fit.slope_db_per_s * t;
                     let line = vec![(fit.start_s, clamp(y(fit.start_s))), (fit.end_s, clamp(y(fit.end_s)))];
-                    chart.draw_series(LineSeries::new(line, color.stroke_width(2))).map_err(|e| err(&e))?;
+                    let drawn = chart.draw_series(LineSeries::new(line, color.stroke_width(2))).map_err(|e| err(&e))?;
+                    if legend {
+                        drawn
+                            .label(name)
+                            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], color.stroke_width(2)));
+                    }
                 }
+            }
+            if legend {
+                chart
+                    .configure_series_labels()
+                    .position(SeriesLabelPosition::UpperRight)
+                    .background_style(WHITE.mix(0.85))
+                    .border_style(BLACK)
+                    .label_font(("sans-serif", 11))
+                    .draw()
+                    .map_err(|e| err(&e))?;
             }
         }
     }
