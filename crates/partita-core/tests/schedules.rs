@@ -172,12 +172,17 @@ fn offline_mode_waits_for_workers_so_a_fast_host_drops_nothing() {
     let total = 48_000 + ir.frames() + 64;
     let want = support::oracle(&input, &ir, Routing::Stereo, 64, total);
 
+    // Each worker job takes at least 2 ms (the test hook), far longer than back-to-back calls give it, so
+    // the outcome does not hang on how fast this machine happens to be.
+    let slow = std::time::Duration::from_millis(2);
     let mut live = Engine::with_options(&plan, &ir, Routing::Stereo, EngineOptions::new(1024)).unwrap();
+    live.set_worker_test_delay(slow);
     support::stream(&mut live, &input, total, || 1024);
     assert!(live.monitor().late_results() > 0, "a live-policy engine driven faster than real time drops results");
 
     let options = EngineOptions { offline: true, ..EngineOptions::new(1024) };
     let mut offline = Engine::with_options(&plan, &ir, Routing::Stereo, options).unwrap();
+    offline.set_worker_test_delay(slow);
     let got = support::stream(&mut offline, &input, total, || 1024);
     assert_eq!(offline.monitor().late_results(), 0);
     for c in 0..2 {
