@@ -11,8 +11,9 @@
 //! - **predicted**: `CostModel::heaviest_call_pct` for the same plan, host period and sample rate.
 //!
 //! Part 1, auto against single schedules: S1 (10 s stereo IR at block 64), the same at blocks 32 and 256,
-//! and a 20 s true-stereo IR (4 paths) at block 128; all-sync, all-sliced, all-workers and `auto`, 20 s of
-//! audio each, interleaved. The verdict per cell: `auto` has 0 late results, a heaviest phase within the
+//! and a 20 s true-stereo IR (4 paths) at block 128, with a 20 s plain stereo IR at block 128 beside it for
+//! T5 (true stereo load / stereo load, per schedule choice, <= 1.8x); all-sync, all-sliced, all-workers
+//! and `auto`, 20 s of audio each, interleaved. The verdict per cell: `auto` has 0 late results, a heaviest phase within the
 //! default headroom (8%), and a mean load at most 1.25x the lowest mean load of the single-schedule plans
 //! whose heaviest phase is within the headroom; its ratio to all-sync is printed beside it.
 //!
@@ -221,12 +222,15 @@ fn part1(quick: bool, model: &CostModel, csv: &mut Csv) -> Vec<String> {
             block: 128,
             host: 128,
         });
+        // Plain stereo of the same length and block, for T5 (true stereo load / stereo load).
+        cases.push(stereo(20.0, 128));
     }
     println!("## Part 1: auto against single schedules ({seconds} s of audio per run)\n");
     let mut table =
         Table::new(&["case", "schedule", "levels", "mean load %", "heaviest phase %", "predicted %", "late"]);
     let mut failed = Vec::new();
     let mut verdicts = Vec::new();
+    let mut loads: Vec<(String, Choice, f64)> = Vec::new();
     for case in &cases {
         let mut rows: Vec<(Choice, RunStats)> = Vec::new();
         for choice in Choice::ALL {
@@ -266,6 +270,7 @@ fn part1(quick: bool, model: &CostModel, csv: &mut Csv) -> Vec<String> {
                 String::new(),
                 format!("{:.2}", load_average()),
             ]);
+            loads.push((case.label.clone(), choice, m.mean_load_pct));
             rows.push((choice, m));
         }
         let auto = &rows.iter().find(|(c, _)| *c == Choice::Auto).expect("auto was run").1;
@@ -310,6 +315,20 @@ fn part1(quick: bool, model: &CostModel, csv: &mut Csv) -> Vec<String> {
     println!("{}", table.render());
     for v in verdicts {
         println!("{v}");
+    }
+    // T5: true stereo (4 paths) against plain stereo (2 paths), same length, block and schedule choice.
+    let load = |label: &str, choice: Choice| loads.iter().find(|(l, c, _)| l == label && *c == choice).map(|x| x.2);
+    for choice in Choice::ALL {
+        if let (Some(ts), Some(st)) = (load("20 s true stereo B 128", choice), load("20 s stereo B 128", choice)) {
+            println!(
+                "- T5, {}: true stereo {ts:.2}% / stereo {st:.2}% = {:.2}x (target <= 1.8x)",
+                choice.name(),
+                ts / st
+            );
+            if !quick && ts / st > 1.8 {
+                failed.push(format!("T5, {}: true stereo / stereo load {:.2}x", choice.name(), ts / st));
+            }
+        }
     }
     println!();
     failed
