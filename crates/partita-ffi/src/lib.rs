@@ -1222,3 +1222,35 @@ pub unsafe extern "C" fn partita_control_destroy(control: *mut *mut PartitaContr
 pub extern "C" fn partita_test_allocations() -> u64 {
     alloc_count::count()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_panic_becomes_a_code_and_a_message() {
+        let code = guard(true, || panic!("deliberate test panic"));
+        assert_eq!(code, PARTITA_ERR_PANIC);
+        // SAFETY: the message pointer is valid until the next library call on this thread.
+        let message = unsafe { CStr::from_ptr(partita_last_error_message()) }.to_string_lossy().into_owned();
+        assert!(message.contains("panic"), "message: {message}");
+        // Real-time callers get the code without a message being formatted.
+        clear_error();
+        assert_eq!(guard(false, || panic!("deliberate test panic")), PARTITA_ERR_PANIC);
+        // SAFETY: as above.
+        assert!(unsafe { CStr::from_ptr(partita_last_error_message()) }.to_bytes().is_empty());
+    }
+
+    #[test]
+    fn every_code_has_its_own_name() {
+        let names: Vec<String> = (PARTITA_OK..=PARTITA_ERR_PANIC)
+            // SAFETY: partita_error_name returns a static NUL-terminated string.
+            .map(|c| unsafe { CStr::from_ptr(partita_error_name(c)) }.to_string_lossy().into_owned())
+            .collect();
+        let mut unique = names.clone();
+        unique.sort();
+        unique.dedup();
+        assert_eq!(unique.len(), names.len(), "{names:?}");
+        assert!(!names.iter().any(|n| n == "PARTITA_ERR_UNKNOWN"), "{names:?}");
+    }
+}

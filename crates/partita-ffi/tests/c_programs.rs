@@ -181,3 +181,18 @@ fn run_args(exe: &Path, args: &[PathBuf]) -> String {
     assert!(out.status.success(), "{} failed:\n{text}", exe.display());
     text
 }
+
+/// The shared library exports only `partita_*` symbols, and its soname is versioned.
+#[test]
+fn shared_library_exports_only_partita_symbols() {
+    let lib = lib_dir().join("libpartita_ffi.so");
+    let out = Command::new("nm").args(["-D", "--defined-only"]).arg(&lib).output().expect("run nm");
+    assert!(out.status.success(), "nm failed");
+    let text = String::from_utf8_lossy(&out.stdout);
+    let names: Vec<&str> = text.lines().filter_map(|l| l.split_whitespace().nth(2)).collect();
+    assert!(names.contains(&"partita_engine_process"), "exports: {names:?}");
+    let foreign: Vec<&&str> = names.iter().filter(|n| !n.starts_with("partita_")).collect();
+    assert!(foreign.is_empty(), "symbols without the partita_ prefix: {foreign:?}");
+    let out = Command::new("readelf").arg("-d").arg(&lib).output().expect("run readelf");
+    assert!(String::from_utf8_lossy(&out.stdout).contains("[libpartita_ffi.so.1]"), "soname is libpartita_ffi.so.1");
+}
