@@ -416,15 +416,13 @@ pub unsafe extern "C" fn partita_plan_create(options: *const PartitaPlanOptions,
         if options.is_null() || out.is_null() {
             return fail(PARTITA_ERR_NULL, "partita_plan_create: options and out must not be NULL");
         }
-        // SAFETY: checked non-null; the caller guarantees a readable struct of the first version's size
-        // (struct_size is checked next, before any other field is used).
-        let o = unsafe { *options };
-        if !size_ok(o.struct_size, std::mem::size_of::<PartitaPlanOptions>()) {
-            return fail(
-                PARTITA_ERR_STRUCT_SIZE,
-                format!("PartitaPlanOptions.struct_size {} is too small", o.struct_size),
-            );
+        // SAFETY: checked non-null; `struct_size` is the first field, so it is readable in any version.
+        let size = unsafe { (*options).struct_size };
+        if !size_ok(size, std::mem::size_of::<PartitaPlanOptions>()) {
+            return fail(PARTITA_ERR_STRUCT_SIZE, format!("PartitaPlanOptions.struct_size {size} is too small"));
         }
+        // SAFETY: the caller's struct is at least as large as this version's (checked above).
+        let o = unsafe { *options };
         let routing = match routing_from(o.routing, o.matrix_inputs, o.matrix_outputs) {
             Ok(r) => r.unwrap_or(Routing::Mono),
             Err(code) => {
@@ -596,15 +594,13 @@ fn engine_options(options: *const PartitaEngineOptions) -> Result<PartitaEngineO
     if options.is_null() {
         return Err(fail(PARTITA_ERR_NULL, "engine options must not be NULL"));
     }
-    // SAFETY: non-null; the caller guarantees a readable struct (its size is checked before use).
-    let o = unsafe { *options };
-    if !size_ok(o.struct_size, std::mem::size_of::<PartitaEngineOptions>()) {
-        return Err(fail(
-            PARTITA_ERR_STRUCT_SIZE,
-            format!("PartitaEngineOptions.struct_size {} is too small", o.struct_size),
-        ));
+    // SAFETY: non-null; `struct_size` is the first field, so it is readable in any version.
+    let size = unsafe { (*options).struct_size };
+    if !size_ok(size, std::mem::size_of::<PartitaEngineOptions>()) {
+        return Err(fail(PARTITA_ERR_STRUCT_SIZE, format!("PartitaEngineOptions.struct_size {size} is too small")));
     }
-    Ok(o)
+    // SAFETY: the caller's struct is at least as large as this version's (checked above).
+    Ok(unsafe { *options })
 }
 
 /// Builds an engine from planar IR buffers (`ir_channels` pointers to `ir_frames` floats each) at
