@@ -208,10 +208,16 @@ impl Control {
     /// again. Call it regularly (a few times per second) so old IRs are freed promptly.
     pub fn poll(&mut self) -> Vec<Event> {
         let mut out = Vec::new();
-        while let Some(e) = self.ends.events.try_pop() {
+        while let Some(e) = self.next_event() {
             out.push(e);
         }
         out
+    }
+
+    /// Takes the oldest event the engine has sent, if any, without allocating (for hosts that poll one
+    /// event at a time, such as the C ABI). Dropping a retired IR it returns frees it on the calling thread.
+    pub fn next_event(&mut self) -> Option<Event> {
+        self.ends.events.try_pop()
     }
 
     /// Reads the status. Resets the peak meter.

@@ -1,0 +1,198 @@
+//! Builds the C test programs in `tests/c/` with `cc` against this crate's shared and static libraries
+//! and runs them: rendering against a direct-form convolution in C (mono, stereo, true stereo, from a
+//! WAV file), a swap from a second thread checked against the crossfade, every refusal path, and (the
+//! library carries the `test-alloc-count` feature in tests) no allocation in process, status and
+//! next_event. Each program also runs once built with AddressSanitizer and LeakSanitizer
+//! (`-fsanitize=address`, linked to the shared library); that instruments only the C side: the Rust library is not instrumented, so
+//! its own heap errors would not be seen (its leaks would, as LeakSanitizer checks the whole process).
+//!
+//! The libraries are the ones `cargo test` built for this crate (next to the test executable).
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+const PROGRAMS: [&str; 3] = ["render", "swap", "refusals"];
+
+fn crate_dir() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// The directory holding libpartita_ffi.so and .a: the test executable's `deps` folder or its parent.
+fn lib_dir() -> PathBuf {
+    let exe = std::env::current_exe().expect("test executable path");
+    let deps = exe.parent().expect("deps dir").to_path_buf();
+    for dir in [deps.clone(), deps.parent().expect("profile dir").to_path_buf()] {
+        if dir.join("libpartita_ffi.so").exists() && dir.join("libpartita_ffi.a").exists() {
+            return dir;
+        }
+    }
+    panic!("libpartita_ffi.so and .a not found next to {}", exe.display());
+}
+
+/// Links `libpartita_ffi.so` under its soname (libpartita_ffi.so.1) in `dir`, as an installed library
+/// would be.
+fn install_shared(lib: &Path, dir: &Path) {
+    let versioned = dir.join("libpartita_ffi.so.1");
+    std::fs::copy(lib.join("libpartita_ffi.so"), &versioned).expect("copy the shared library");
+    let plain = dir.join("libpartita_ffi.so");
+    std::fs::remove_file(&plain).ok();
+    std::os::unix::fs::symlink("libpartita_ffi.so.1", &plain).expect("symlink");
+}
+
+fn build(program: &str, dir: &Path, lib: &Path, link: &str, asan: bool) -> PathBuf {
+    let exe = dir.join(format!("{program}-{link}{}", if asan { "-asan" } else { "" }));
+    let mut cc = Command::new("cc");
+    cc.args([
+        "-std=c99",
+        "-D_DEFAULT_SOURCE",
+        "-O1",
+        "-g",
+        "-Wall",
+        "-Wextra",
+        "-Werror",
+        "-DPARTITA_TEST_ALLOC_COUNT",
+    ])
+    .arg("-I")
+    .arg(crate_dir().join("include"))
+    .arg(crate_dir().join("tests/c").join(format!("{program}.c")))
+    .arg("-o")
+    .arg(&exe);
+    if asan {
+        cc.arg("-fsanitize=address").arg("-fno-omit-frame-pointer");
+    }
+    match link {
+        "shared" => {
+            cc.arg("-L").arg(dir).arg(format!("-Wl,-rpath,{}", dir.display())).arg("-lpartita_ffi");
+        }
+        _ => {
+            cc.arg(lib.join("libpartita_ffi.a"));
+        }
+    }
+    // What a static Rust library needs from the system (`rustc --print native-static-libs`).
+    cc.args(["-lpthread", "-ldl", "-lm", "-lgcc_s", "-lc"]);
+    let out = cc.output().unwrap_or_else(|e| panic!("run cc: {e}"));
+    assert!(out.status.success(), "cc {program} ({link}) failed:\n{}", String::from_utf8_lossy(&out.stderr));
+    exe
+}
+
+fn run(exe: &Path, dir: &Path) -> String {
+    let out = Command::new(exe).arg(dir).output().unwrap_or_else(|e| panic!("run {}: {e}", exe.display()));
+    let text = format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr));
+    assert!(out.status.success(), "{} failed:\n{text}", exe.display());
+    text
+}
+
+fn scratch(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("partita-ffi-c-{name}-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).expect("scratch dir");
+    dir
+}
+
+fn run_all(name: &str, asan: bool) {
+    let lib = lib_dir();
+    let dir = scratch(name);
+    install_shared(&lib, &dir);
+    for program in PROGRAMS {
+        // Under ASan the shared build only (the static one is the same C code and library).
+        let links: &[&str] = if asan { &["shared"] } else { &["shared", "static"] };
+        for &link in links {
+            let exe = build(program, &dir, &lib, link, asan);
+            let text = run(&exe, &dir);
+            println!("--- {program} ({link}{}) ---\n{text}", if asan { ", ASan" } else { "" });
+            assert!(text.contains(&format!("{program}: ok (0 failures)")), "{program}: no success line:\n{text}");
+        }
+    }
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+#[test]
+fn c_programs_shared_and_static() {
+    run_all("plain", false);
+}
+
+#[test]
+fn c_programs_under_address_sanitizer() {
+    run_all("asan", true);
+}
+
+/// The C example in `examples/c/` builds against the header and the shared library, and renders a raw
+/// file through a WAV IR: the output has the input's frames plus the latency and one second of tail, and
+/// carries the convolved signal.
+#[test]
+fn c_example_builds_and_renders() {
+    let lib = lib_dir();
+    let dir = scratch("example");
+    install_shared(&lib, &dir);
+    let source = crate_dir().join("../../examples/c/partita_render.c");
+    let exe = dir.join("partita_render");
+    let out = Command::new("cc")
+        .args(["-std=c99", "-Wall", "-Wextra", "-Werror", "-O1"])
+        .arg("-I")
+        .arg(crate_dir().join("include"))
+        .arg(&source)
+        .arg("-o")
+        .arg(&exe)
+        .arg("-L")
+        .arg(&dir)
+        .arg(format!("-Wl,-rpath,{}", dir.display()))
+        .args(["-lpartita_ffi", "-lpthread"])
+        .output()
+        .expect("run cc");
+    assert!(out.status.success(), "cc example failed:\n{}", String::from_utf8_lossy(&out.stderr));
+
+    let rate = 48_000;
+    let ir1: Vec<f32> = (0..2000).map(|i| (-(i as f32) / 300.0).exp() * if i % 2 == 0 { 1.0 } else { -0.5 }).collect();
+    let ir2: Vec<f32> = ir1.iter().map(|v| v * 0.5).collect();
+    for (name, ir) in [("ir1.wav", &ir1), ("ir2.wav", &ir2)] {
+        partita_io::write_wav(
+            &dir.join(name),
+            &[ir],
+            rate,
+            partita_io::SampleFormat::F32,
+            partita_io::Dither::default(),
+        )
+        .expect("write IR");
+    }
+    let input: Vec<f32> = (0..4800).map(|i| if i % 480 == 0 { 0.5 } else { 0.0 }).collect();
+    let bytes: Vec<u8> = input.iter().flat_map(|v| v.to_le_bytes()).collect();
+    std::fs::write(dir.join("in.f32"), bytes).expect("write input");
+    let text = run_args(
+        &exe,
+        &[dir.join("ir1.wav"), dir.join("ir2.wav"), "1".into(), dir.join("in.f32"), dir.join("out.f32")],
+    );
+    println!("{text}");
+    let rendered = std::fs::read(dir.join("out.f32")).expect("output written");
+    let samples: Vec<f32> = rendered.chunks_exact(4).map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]])).collect();
+    let latency: usize = text
+        .split("latency ")
+        .nth(1)
+        .and_then(|s| s.split_whitespace().next())
+        .and_then(|s| s.parse().ok())
+        .expect("the example prints its latency");
+    assert_eq!(samples.len(), input.len() + latency + rate as usize);
+    // The first impulse comes out, after the latency, scaled by the IR's first tap.
+    assert!((samples[latency] - 0.5 * ir1[0]).abs() < 1e-5, "first output sample {}", samples[latency]);
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+fn run_args(exe: &Path, args: &[PathBuf]) -> String {
+    let out = Command::new(exe).args(args).output().unwrap_or_else(|e| panic!("run {}: {e}", exe.display()));
+    let text = format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr));
+    assert!(out.status.success(), "{} failed:\n{text}", exe.display());
+    text
+}
+
+/// The shared library exports only `partita_*` symbols, and its soname is versioned.
+#[test]
+fn shared_library_exports_only_partita_symbols() {
+    let lib = lib_dir().join("libpartita_ffi.so");
+    let out = Command::new("nm").args(["-D", "--defined-only"]).arg(&lib).output().expect("run nm");
+    assert!(out.status.success(), "nm failed");
+    let text = String::from_utf8_lossy(&out.stdout);
+    let names: Vec<&str> = text.lines().filter_map(|l| l.split_whitespace().nth(2)).collect();
+    assert!(names.contains(&"partita_engine_process"), "exports: {names:?}");
+    let foreign: Vec<&&str> = names.iter().filter(|n| !n.starts_with("partita_")).collect();
+    assert!(foreign.is_empty(), "symbols without the partita_ prefix: {foreign:?}");
+    let out = Command::new("readelf").arg("-d").arg(&lib).output().expect("run readelf");
+    assert!(String::from_utf8_lossy(&out.stdout).contains("[libpartita_ffi.so.1]"), "soname is libpartita_ffi.so.1");
+}
