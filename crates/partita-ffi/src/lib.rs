@@ -511,17 +511,26 @@ pub unsafe extern "C" fn partita_plan_info(plan: *const PartitaPlan, info: *mut 
 /// `plan` is NULL or points to NULL or to a plan from [`partita_plan_create`] not yet destroyed.
 #[no_mangle]
 pub unsafe extern "C" fn partita_plan_destroy(plan: *mut *mut PartitaPlan) -> i32 {
-    guard(true, || {
-        // SAFETY: `plan` checked non-null before reading; `*plan` came from Box::into_raw (caller contract).
-        unsafe {
-            if plan.is_null() || (*plan).is_null() {
-                return fail(PARTITA_ERR_NULL, "partita_plan_destroy: NULL handle (already destroyed?)");
-            }
-            drop(Box::from_raw(*plan));
-            *plan = std::ptr::null_mut();
+    // SAFETY: the caller's contract (NULL, pointing to NULL, or to a live handle of this type).
+    guard(true, || unsafe { destroy_handle(plan, "partita_plan_destroy") })
+}
+
+/// Frees the boxed handle `*handle` and sets it to NULL; `PARTITA_ERR_NULL` (with a message naming `what`)
+/// when `handle` or `*handle` is NULL, as on a second destroy through the same variable. Every
+/// `partita_*_destroy` is this.
+///
+/// # Safety
+/// `handle` NULL, pointing to NULL, or to a pointer that came from `Box::into_raw` and was not freed.
+unsafe fn destroy_handle<T>(handle: *mut *mut T, what: &str) -> i32 {
+    // SAFETY: `handle` is checked non-null before it is read; `*handle` came from Box::into_raw (contract).
+    unsafe {
+        if handle.is_null() || (*handle).is_null() {
+            return fail(PARTITA_ERR_NULL, format!("{what}: NULL handle (already destroyed?)"));
         }
-        PARTITA_OK
-    })
+        drop(Box::from_raw(*handle));
+        *handle = std::ptr::null_mut();
+    }
+    PARTITA_OK
 }
 
 /// Copies `channels` planar IR buffers of `frames` taps into an [`ImpulseResponse`].
@@ -904,17 +913,8 @@ pub unsafe extern "C" fn partita_engine_process_interleaved(
 /// `engine` NULL, pointing to NULL, or to a live engine.
 #[no_mangle]
 pub unsafe extern "C" fn partita_engine_destroy(engine: *mut *mut PartitaEngine) -> i32 {
-    guard(true, || {
-        // SAFETY: `engine` checked non-null before reading; `*engine` came from Box::into_raw.
-        unsafe {
-            if engine.is_null() || (*engine).is_null() {
-                return fail(PARTITA_ERR_NULL, "partita_engine_destroy: NULL handle (already destroyed?)");
-            }
-            drop(Box::from_raw(*engine));
-            *engine = std::ptr::null_mut();
-        }
-        PARTITA_OK
-    })
+    // SAFETY: the caller's contract (NULL, pointing to NULL, or to a live handle of this type).
+    guard(true, || unsafe { destroy_handle(engine, "partita_engine_destroy") })
 }
 
 /// Prepares planar IR buffers for the control's engine (same channel count and rate, at most the engine's
@@ -996,17 +996,8 @@ pub unsafe extern "C" fn partita_control_prepare_wav(
 /// `ir` NULL, pointing to NULL, or to a live prepared IR.
 #[no_mangle]
 pub unsafe extern "C" fn partita_prepared_destroy(ir: *mut *mut PartitaPrepared) -> i32 {
-    guard(true, || {
-        // SAFETY: checked non-null before reading; `*ir` came from Box::into_raw.
-        unsafe {
-            if ir.is_null() || (*ir).is_null() {
-                return fail(PARTITA_ERR_NULL, "partita_prepared_destroy: NULL handle");
-            }
-            drop(Box::from_raw(*ir));
-            *ir = std::ptr::null_mut();
-        }
-        PARTITA_OK
-    })
+    // SAFETY: the caller's contract (NULL, pointing to NULL, or to a live handle of this type).
+    guard(true, || unsafe { destroy_handle(ir, "partita_prepared_destroy") })
 }
 
 /// Queues a swap to `*ir` with a crossfade of `fade_frames` output frames (0: switch at a block boundary)
@@ -1198,17 +1189,8 @@ pub unsafe extern "C" fn partita_control_status(
 /// `control` NULL, pointing to NULL, or to a live control handle.
 #[no_mangle]
 pub unsafe extern "C" fn partita_control_destroy(control: *mut *mut PartitaControl) -> i32 {
-    guard(true, || {
-        // SAFETY: checked non-null before reading; `*control` came from Box::into_raw.
-        unsafe {
-            if control.is_null() || (*control).is_null() {
-                return fail(PARTITA_ERR_NULL, "partita_control_destroy: NULL handle (already destroyed?)");
-            }
-            drop(Box::from_raw(*control));
-            *control = std::ptr::null_mut();
-        }
-        PARTITA_OK
-    })
+    // SAFETY: the caller's contract (NULL, pointing to NULL, or to a live handle of this type).
+    guard(true, || unsafe { destroy_handle(control, "partita_control_destroy") })
 }
 
 /// Test only (feature `test-alloc-count`): heap allocations made by this library's allocator so far, on
