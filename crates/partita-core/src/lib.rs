@@ -59,7 +59,7 @@ pub use plan::cost::{
 };
 pub use plan::planner::{PlanMode, Planner, DEFAULT_HEADROOM_PCT, WORKER_SLACK_SECONDS};
 pub use plan::{Level, Plan, Schedule};
-pub use platform::{process_cpu_seconds, thread_cpu_seconds};
+pub use platform::{process_cpu_seconds, thread_cpu_seconds, try_realtime_priority};
 #[cfg(feature = "test-hooks")]
 pub use prepared::PrepareSplit;
 pub use prepared::PreparedIr;

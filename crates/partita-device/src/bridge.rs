@@ -104,14 +104,14 @@ pub struct CallbackTime {
 
 /// Engine and safety stage: the processing one side runs, per chunk.
 #[derive(Debug)]
-struct Stage {
-    engine: Engine,
-    outs: Vec<Vec<f32>>,
+pub(crate) struct Stage {
+    pub(crate) engine: Engine,
+    pub(crate) outs: Vec<Vec<f32>>,
     safety: SafetyStage,
 }
 
 impl Stage {
-    fn new(engine: Engine, chunk: usize, options: &BridgeOptions) -> Self {
+    pub(crate) fn new(engine: Engine, chunk: usize, options: &BridgeOptions) -> Self {
         Self {
             outs: vec![vec![0.0; chunk]; engine.outputs()],
             safety: SafetyStage::new(&options.safety, options.sample_rate_hz),
@@ -120,7 +120,7 @@ impl Stage {
     }
 
     /// Runs `len` frames of `ins` (planar, one per engine input) into `self.outs`.
-    fn run(&mut self, ins: &[Vec<f32>], len: usize, shared: &BridgeCells) {
+    pub(crate) fn run(&mut self, ins: &[Vec<f32>], len: usize, shared: &BridgeCells) {
         let m = ins.len();
         let n = self.outs.len();
         if shared.unmute.swap(false, Relaxed) {
@@ -139,9 +139,11 @@ impl Stage {
             for (r, b) in out_refs.iter_mut().zip(self.outs.iter_mut()) {
                 *r = &mut b[..len];
             }
-            // Cannot fail: channel counts and lengths are fixed at construction and len <= chunk <=
-            // max_host_frames. On error the engine zeroes the outputs, which is safe.
-            let _ = self.engine.process(&in_refs[..m], &mut out_refs[..n]);
+            // Should not fail: channel counts and lengths are fixed at construction and len <= chunk <=
+            // max_host_frames. On error the engine zeroes the outputs, which is safe; it is counted.
+            if self.engine.process(&in_refs[..m], &mut out_refs[..n]).is_err() {
+                shared.engine_errors.fetch_add(1, Relaxed);
+            }
         }
         #[cfg(feature = "test-hooks")]
         if shared.inject_nonfinite.swap(false, Relaxed) {
@@ -167,27 +169,38 @@ impl Stage {
 
 /// Measures one callback: thread CPU time into the load, wall time against the period for the
 /// overrun count and the worst-callback figure.
-struct CallbackTimer {
+pub(crate) struct CallbackTimer {
     wall: Instant,
     cpu_s: f64,
+    /// This callback runs the engine: its time goes into the distribution.
+    engine: bool,
 }
 
 impl CallbackTimer {
     #[inline]
-    fn start() -> Self {
-        Self { wall: Instant::now(), cpu_s: partita_core::thread_cpu_seconds() }
+    pub(crate) fn start(engine: bool) -> Self {
+        Self { wall: Instant::now(), cpu_s: partita_core::thread_cpu_seconds(), engine }
     }
 
     #[inline]
-    fn finish(self, shared: &BridgeCells, frames: usize) {
+    pub(crate) fn finish(self, shared: &BridgeCells, frames: usize) {
         let cpu = partita_core::thread_cpu_seconds() - self.cpu_s;
-        let wall = self.wall.elapsed().as_secs_f64();
+        let elapsed = self.wall.elapsed();
+        if self.engine {
+            shared.callback_times.record(elapsed.as_nanos() as u64);
+        }
+        let wall = elapsed.as_secs_f64();
         let period = frames as f64 / f64::from(shared.rate_hz);
         shared.cpu_ns.fetch_add((cpu.max(0.0) * 1e9) as u64, Relaxed);
         if period > 0.0 {
             shared.max_callback_ppm.fetch_max((wall / period * 1e6) as u64, Relaxed);
             if wall > period {
-                shared.late_callbacks.fetch_add(1, Relaxed);
+                // Our own work over the period, or the thread kept off the CPU by the scheduler.
+                if cpu > period {
+                    shared.late_callbacks.fetch_add(1, Relaxed);
+                } else {
+                    shared.preempted_callbacks.fetch_add(1, Relaxed);
+                }
             }
         }
     }
@@ -195,7 +208,7 @@ impl CallbackTimer {
 
 /// Spins for the test stall hook (feature `test-hooks`).
 #[cfg(feature = "test-hooks")]
-fn test_stall(shared: &BridgeCells) {
+pub(crate) fn test_stall(shared: &BridgeCells) {
     let ns = shared.stall_ns.swap(0, Relaxed);
     if ns > 0 {
         let until = Instant::now() + std::time::Duration::from_nanos(ns);
@@ -372,7 +385,7 @@ impl Bridge {
 impl CaptureSide {
     /// One input callback: `data` holds interleaved frames of the device's channels. Never allocates.
     pub fn capture<T: DeviceSample>(&mut self, data: &[T], time: CallbackTime) {
-        let timer = CallbackTimer::start();
+        let timer = CallbackTimer::start(self.stage.is_some());
         let shared = &*self.shared;
         let c = self.device_channels;
         let frames = data.len() / c;
@@ -443,7 +456,7 @@ fn interleave(planar: &[Vec<f32>], out: &mut [f32], len: usize) {
 impl PlaybackSide {
     /// One output callback: fills `data`, interleaved frames of the device's channels. Never allocates.
     pub fn play<T: DeviceSample>(&mut self, data: &mut [T], time: CallbackTime) {
-        let timer = CallbackTimer::start();
+        let timer = CallbackTimer::start(self.stage.is_some());
         #[cfg(feature = "test-hooks")]
         test_stall(&self.shared);
         let c = self.device_channels;
@@ -639,6 +652,12 @@ impl BridgeHandle {
     #[inline]
     pub fn note_error(&self, kind: cpal::ErrorKind, direction: crate::Direction) {
         self.shared.note_error(kind, direction);
+    }
+
+    /// Asks real-time priority for the calling callback thread (`StreamOptions::realtime`); see
+    /// [`crate::CALLBACK_PRIORITY`].
+    pub(crate) fn promote_callback_thread(&self) {
+        crate::realtime::promote_callback_thread(&self.shared);
     }
 
     /// Ends a safety mute: the engine's state is cleared by its spread reset (a slice per block, never all

@@ -86,6 +86,9 @@ pub enum DeviceError {
         /// cpal's error (its `kind()` classifies it).
         source: cpal::Error,
     },
+    /// The JACK server refused an operation of the duplex client (feature `jack`); the message says
+    /// what was being done and what to try.
+    Jack(String),
 }
 
 impl fmt::Display for DeviceError {
@@ -138,6 +141,7 @@ impl fmt::Display for DeviceError {
                 write!(f, "{channels} engine channels; live streaming handles at most {max}")
             }
             Self::Cpal { context, source } => write!(f, "{context}: {source} ({:?})", source.kind()),
+            Self::Jack(msg) => write!(f, "JACK: {msg}"),
         }
     }
 }

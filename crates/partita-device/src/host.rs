@@ -498,12 +498,17 @@ impl LiveDevices {
         // Other hosts give each stream its own time origin: use our clock.
         let shared_clock = self.is_jack();
         let (clock, errors) = (handle.clone(), handle.clone());
+        let mut promote = options.realtime;
         let input_stream = self
             .input
             .build_input_stream_raw(
                 self.input_config,
                 self.input_format,
                 move |data: &cpal::Data, info: &cpal::InputCallbackInfo| {
+                    if promote {
+                        promote = false;
+                        clock.promote_callback_thread();
+                    }
                     let ts = info.timestamp();
                     let delay = ts.callback.saturating_duration_since(ts.capture).as_nanos() as u64;
                     let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock.now_ns() };
@@ -514,12 +519,17 @@ impl LiveDevices {
             )
             .map_err(|source| DeviceError::Cpal { context: "building the input stream".into(), source })?;
         let (clock, errors) = (handle.clone(), handle.clone());
+        let mut promote = options.realtime;
         let output_stream = self
             .output
             .build_output_stream_raw(
                 self.output_config,
                 self.output_format,
                 move |data: &mut cpal::Data, info: &cpal::OutputCallbackInfo| {
+                    if promote {
+                        promote = false;
+                        clock.promote_callback_thread();
+                    }
                     let ts = info.timestamp();
                     let delay = ts.playback.saturating_duration_since(ts.callback).as_nanos() as u64;
                     let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock.now_ns() };
@@ -580,6 +590,9 @@ pub struct StreamOptions {
     pub safety: SafetyOptions,
     /// Drift correction.
     pub drift: DriftOptions,
+    /// Ask for SCHED_FIFO [`CALLBACK_PRIORITY`](crate::CALLBACK_PRIORITY) for both callback threads on
+    /// their first callback (the outcome is in [`Stats::callback_priority`]).
+    pub realtime: bool,
 }
 
 /// What a started stream runs with.

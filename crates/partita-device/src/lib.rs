@@ -59,29 +59,39 @@
 //! mute on non-finite output or 400 ms of sustained full-scale output.
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
-#![forbid(unsafe_code)]
+// Only the modules that call C (`duplex` for jack-sys, `realtime` for pthreads) allow unsafe code, each
+// for itself.
+#![deny(unsafe_code)]
 
 mod bridge;
 mod channels;
 pub mod convert;
 pub mod drift;
+#[cfg(feature = "jack")]
+mod duplex;
 mod error;
 mod host;
+mod realtime;
 pub mod safety;
 mod stats;
+mod timing;
 
 pub use bridge::{
     Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, PlaybackSide, MAX_ENGINE_CHANNELS,
 };
 pub use channels::ChannelMap;
 pub use drift::{Correction, DriftOptions, DriftTracker};
+#[cfg(feature = "jack")]
+pub use duplex::{DuplexInfo, DuplexLatency, DuplexOptions, DuplexStream, JackDuplex, RebuildFn};
 pub use error::{DeviceError, Direction};
 pub use host::{
     host_by_name, host_names, jack_client_names, list_devices, ConfigInfo, DeviceInfo, DeviceOptions, DeviceSelector,
     LiveDevices, LiveInfo, LiveStream, SideInfo, StreamOptions,
 };
+pub use realtime::CALLBACK_PRIORITY;
 pub use safety::{Ceiling, MuteReason, SafetyOptions, SafetyStage};
 pub use stats::{Fault, Peaks, Stats};
+pub use timing::CallbackTimes;
 
 /// The caution `partita monitor` prints on start.
 pub const CAUTION: &str = "\

@@ -1,11 +1,12 @@
 //! Run-time counters shared by the audio callbacks (atomics only) and what the control side reads.
 
 use std::sync::atomic::{
-    AtomicBool, AtomicU32, AtomicU64, AtomicU8, Ordering::Acquire, Ordering::Relaxed, Ordering::Release,
+    AtomicBool, AtomicI64, AtomicU32, AtomicU64, AtomicU8, Ordering::Acquire, Ordering::Relaxed, Ordering::Release,
 };
 
 use crate::error::Direction;
 use crate::safety::MuteReason;
+use crate::timing::{CallbackTimes, TimeHistogram};
 
 /// Why a running stream stopped working. The error callbacks and the watchdog set it; the control side
 /// ends the stream with [`Fault`]'s message.
@@ -19,6 +20,11 @@ pub enum Fault {
     StreamInvalidated(Direction),
     /// No callback for a second while the stream should be running.
     Stalled(Direction),
+    /// The JACK server shut the duplex client down (it stopped, or was killed).
+    ServerStopped,
+    /// A rate or period change needed a new engine and building it failed (the duplex client's
+    /// `rebuild_error` says why).
+    RebuildFailed,
 }
 
 impl Fault {
@@ -28,6 +34,8 @@ impl Fault {
             Self::HostLost(d) => (2, d),
             Self::StreamInvalidated(d) => (3, d),
             Self::Stalled(d) => (4, d),
+            Self::ServerStopped => (5, Direction::Output),
+            Self::RebuildFailed => (6, Direction::Output),
         };
         (c, if d == Direction::Input { 0 } else { 1 })
     }
@@ -39,6 +47,8 @@ impl Fault {
             2 => Some(Self::HostLost(d)),
             3 => Some(Self::StreamInvalidated(d)),
             4 => Some(Self::Stalled(d)),
+            5 => Some(Self::ServerStopped),
+            6 => Some(Self::RebuildFailed),
             _ => None,
         }
     }
@@ -61,6 +71,14 @@ impl std::fmt::Display for Fault {
             Self::Stalled(d) => {
                 write!(f, "the {d} stream stopped calling back for over a second; the stream was ended")
             }
+            Self::ServerStopped => {
+                write!(f, "the JACK server stopped (or shut this client down); the stream was ended")
+            }
+            Self::RebuildFailed => write!(
+                f,
+                "the server's sample rate or period changed and the engine could not be rebuilt for it; the stream \
+                 was ended"
+            ),
         }
     }
 }
@@ -76,8 +94,13 @@ pub struct Stats {
     pub ring_underruns: u64,
     /// Times the capture side found the ring too full and dropped frames.
     pub ring_overflows: u64,
-    /// Callbacks whose own processing took longer than their period (wall clock, measured inside).
+    /// Callbacks whose own work took longer than their period: wall clock over the period and the
+    /// thread's CPU time over it too (measured inside the callback).
     pub late_callbacks: u64,
+    /// Callbacks over their period by the wall clock while their CPU time was within it: the thread was
+    /// preempted (a server or callback thread without real-time priority on a busy machine). Not one of
+    /// our overruns; the cure is real-time scheduling (a real-time server, or `--realtime`).
+    pub preempted_callbacks: u64,
     /// Frames dropped to correct drift (input faster than output).
     pub drift_slips: u64,
     /// Frames repeated to correct drift (input slower than output).
@@ -86,8 +109,10 @@ pub struct Stats {
     pub resyncs: u64,
     /// Times the ring was primed again after a period change or an underrun (the first start not counted).
     pub reprimes: u64,
-    /// Worker results that missed their deadline (the engine's `Monitor::late_results`).
+    /// Worker or sliced results that missed their deadline (the engine's `Monitor::late_results`).
     pub late_results: u64,
+    /// Engine calls that returned an error (the output was zeroed for that chunk).
+    pub engine_errors: u64,
     /// Non-finite input samples, replaced by 0 before the engine and the dry path.
     pub nonfinite_inputs: u64,
     /// Non-finite output samples the safety stage caught.
@@ -122,12 +147,19 @@ pub struct Stats {
     pub output_callbacks: u64,
     /// Errors of other kinds cpal reported (e.g. real-time priority refused), counted only.
     pub other_errors: u64,
+    /// Wall-clock time of the callback that runs the engine: p50, p99, p99.9, max.
+    pub callback_times: CallbackTimes,
+    /// The real-time priority asked for the audio callback's thread (`--realtime`): `None` when not
+    /// asked (or no callback yet), `Some(Ok(p))` granted SCHED_FIFO priority `p`, `Some(Err(errno))`
+    /// refused.
+    pub callback_priority: Option<Result<i32, i32>>,
 }
 
 impl Stats {
-    /// Partita's own overruns: ring underruns and overflows plus late callbacks.
+    /// Partita's own overruns, as opposed to the host's xruns: ring underruns and overflows, callbacks
+    /// over their period, late worker or sliced results, engine errors.
     pub fn overruns(&self) -> u64 {
-        self.ring_underruns + self.ring_overflows + self.late_callbacks
+        self.ring_underruns + self.ring_overflows + self.late_callbacks + self.late_results + self.engine_errors
     }
 
     /// Drift corrections: slips plus repeats.
@@ -159,6 +191,7 @@ pub(crate) struct BridgeCells {
     pub ring_underruns: AtomicU64,
     pub ring_overflows: AtomicU64,
     pub late_callbacks: AtomicU64,
+    pub preempted_callbacks: AtomicU64,
     pub drift_slips: AtomicU64,
     pub drift_repeats: AtomicU64,
     pub resyncs: AtomicU64,
@@ -189,6 +222,10 @@ pub(crate) struct BridgeCells {
     pub in_peak: AtomicU32,
     pub out_peak: AtomicU32,
     pub unmute: AtomicBool,
+    pub engine_errors: AtomicU64,
+    pub callback_times: TimeHistogram,
+    /// `i64::MIN`: no priority asked; >= 0 granted priority; < 0 minus the OS error.
+    pub callback_priority: AtomicI64,
     #[cfg(feature = "test-hooks")]
     pub stall_ns: AtomicU64,
     #[cfg(feature = "test-hooks")]
@@ -205,6 +242,7 @@ impl BridgeCells {
             ring_underruns: z(),
             ring_overflows: z(),
             late_callbacks: z(),
+            preempted_callbacks: z(),
             drift_slips: z(),
             drift_repeats: z(),
             resyncs: z(),
@@ -234,6 +272,9 @@ impl BridgeCells {
             in_peak: AtomicU32::new(0),
             out_peak: AtomicU32::new(0),
             unmute: AtomicBool::new(false),
+            engine_errors: z(),
+            callback_times: TimeHistogram::new(),
+            callback_priority: AtomicI64::new(i64::MIN),
             #[cfg(feature = "test-hooks")]
             stall_ns: z(),
             #[cfg(feature = "test-hooks")]
@@ -284,6 +325,15 @@ impl BridgeCells {
         }
     }
 
+    /// Stores the outcome of a priority request for the callback thread. Atomics only.
+    pub fn store_priority(&self, granted: Result<i32, i32>) {
+        let v = match granted {
+            Ok(p) => i64::from(p),
+            Err(e) => -i64::from(e.max(1)),
+        };
+        self.callback_priority.store(v, Relaxed);
+    }
+
     #[inline]
     pub fn record_latency(&self, ns: u64) {
         self.latency_last_ns.store(ns, Relaxed);
@@ -319,11 +369,13 @@ impl BridgeCells {
             ring_underruns: self.ring_underruns.load(Relaxed),
             ring_overflows: self.ring_overflows.load(Relaxed),
             late_callbacks: self.late_callbacks.load(Relaxed),
+            preempted_callbacks: self.preempted_callbacks.load(Relaxed),
             drift_slips: self.drift_slips.load(Relaxed),
             drift_repeats: self.drift_repeats.load(Relaxed),
             resyncs: self.resyncs.load(Relaxed),
             reprimes: self.reprimes.load(Relaxed),
             late_results,
+            engine_errors: self.engine_errors.load(Relaxed),
             nonfinite_inputs: self.nonfinite_inputs.load(Relaxed),
             nonfinite_outputs: self.nonfinite_outputs.load(Relaxed),
             mutes: self.mutes.load(Relaxed),
@@ -340,6 +392,12 @@ impl BridgeCells {
             input_callbacks: self.callbacks_in.load(Relaxed),
             output_callbacks: self.callbacks_out.load(Relaxed),
             other_errors: self.other_errors.load(Relaxed),
+            callback_times: self.callback_times.snapshot(),
+            callback_priority: match self.callback_priority.load(Relaxed) {
+                i64::MIN => None,
+                p if p >= 0 => Some(Ok(p as i32)),
+                e => Some(Err((-e) as i32)),
+            },
         }
     }
 }

@@ -14,7 +14,7 @@ pub fn process_cpu_seconds() -> f64 {
 
 /// Always refused with [`NO_REALTIME`](super::NO_REALTIME): this build cannot set real-time priorities,
 /// so worker threads run at normal priority.
-pub(crate) fn try_realtime_priority(priority: i32) -> Result<i32, i32> {
+pub fn try_realtime_priority(priority: i32) -> Result<i32, i32> {
     let _ = priority;
     Err(super::NO_REALTIME)
 }

@@ -13,14 +13,13 @@ mod fallback;
 #[cfg(any(not(unix), feature = "portable-fallback"))]
 use fallback as imp;
 
-pub(crate) use imp::try_realtime_priority;
-pub use imp::{process_cpu_seconds, thread_cpu_seconds};
+pub use imp::{process_cpu_seconds, thread_cpu_seconds, try_realtime_priority};
 
 /// The error [`try_realtime_priority`] returns where this build cannot set real-time priorities (the
 /// portable fallback, unix targets other than Linux). Not an OS error number: those are small positive
 /// integers, and this is `i32::MAX`. Not needed (so not compiled) where the Linux implementation runs.
 #[cfg(any(not(target_os = "linux"), feature = "portable-fallback"))]
-pub(crate) const NO_REALTIME: i32 = i32::MAX;
+pub const NO_REALTIME: i32 = i32::MAX;
 
 #[cfg(test)]
 mod tests {

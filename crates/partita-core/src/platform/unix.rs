@@ -28,7 +28,7 @@ pub fn process_cpu_seconds() -> f64 {
 /// Tries to give the calling thread `SCHED_FIFO` priority `priority`; returns the priority granted,
 /// or the OS error number when refused (commonly EPERM without the privilege), or `NO_REALTIME` (the
 /// platform module's) on unix targets other than Linux. Never fails otherwise.
-pub(crate) fn try_realtime_priority(priority: i32) -> Result<i32, i32> {
+pub fn try_realtime_priority(priority: i32) -> Result<i32, i32> {
     #[cfg(target_os = "linux")]
     {
         // SAFETY: sched_param is plain data; pthread_self() is always valid for the calling thread.

@@ -58,8 +58,27 @@ pub struct TestClient {
 
 impl TestClient {
     pub fn start(playlist: Playlist, record_ports: usize, capacity: usize) -> Self {
-        let (client, _) =
-            jack::Client::new("partita_test_client", jack::ClientOptions::NO_START_SERVER).expect("test client");
+        let (cin, cout) = partita_device::jack_client_names();
+        let plays = (0..playlist.channels.len()).map(|i| format!("{cin}:in_{i}")).collect();
+        let recs = (0..record_ports).map(|i| format!("{cout}:out_{i}")).collect();
+        Self::start_with(playlist, capacity, plays, recs)
+    }
+
+    /// A client whose `play_N` port feeds `play_to[N]` and whose `rec_N` port records `record_from[N]`.
+    pub fn start_with(playlist: Playlist, capacity: usize, play_to: Vec<String>, record_from: Vec<String>) -> Self {
+        Self::start_named("partita_test_client", playlist, capacity, play_to, record_from)
+    }
+
+    /// [`start_with`](Self::start_with) under a client name of the caller's.
+    pub fn start_named(
+        name: &str,
+        playlist: Playlist,
+        capacity: usize,
+        play_to: Vec<String>,
+        record_from: Vec<String>,
+    ) -> Self {
+        let record_ports = record_from.len();
+        let (client, _) = jack::Client::new(name, jack::ClientOptions::NO_START_SERVER).expect("test client");
         let play: Vec<_> = (0..playlist.channels.len())
             .map(|i| client.register_port(&format!("play_{i}"), jack::AudioOut::default()).unwrap())
             .collect();
@@ -67,7 +86,6 @@ impl TestClient {
             .map(|i| client.register_port(&format!("rec_{i}"), jack::AudioIn::default()).unwrap())
             .collect();
         let me = client.name().to_string();
-        let (cin, cout) = partita_device::jack_client_names();
         let state = ClientState {
             play,
             rec,
@@ -79,11 +97,11 @@ impl TestClient {
         let n_play = state.play.len();
         let active = client.activate_async((), state).expect("activate test client");
         let c = active.as_client();
-        for i in 0..n_play {
-            c.connect_ports_by_name(&format!("{me}:play_{i}"), &format!("{cin}:in_{i}")).expect("connect play");
+        for (i, to) in play_to.iter().enumerate().take(n_play) {
+            c.connect_ports_by_name(&format!("{me}:play_{i}"), to).expect("connect play");
         }
-        for i in 0..record_ports {
-            c.connect_ports_by_name(&format!("{cout}:out_{i}"), &format!("{me}:rec_{i}")).expect("connect rec");
+        for (i, from) in record_from.iter().enumerate() {
+            c.connect_ports_by_name(from, &format!("{me}:rec_{i}")).expect("connect rec");
         }
         Self { client: active }
     }
