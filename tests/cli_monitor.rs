@@ -95,9 +95,59 @@ fn monitor_runs_for_seconds_and_reports_zero_overruns() {
     assert!(v["schedules"].as_str().is_some_and(|s| s.starts_with("sync")), "{v}");
     let seconds = v["seconds"].as_f64().unwrap();
     assert!((4.5..6.0).contains(&seconds), "{seconds} s of audio");
-    // Engine 5.33 ms plus the device side: a few periods of 5.33 ms.
+    // One duplex JACK client: the latency is exact, the engine's 256 frames plus the capture (one period)
+    // and playback (two periods) latencies the dummy driver reports for the physical ports.
+    assert_eq!(v["engine_side"], "duplex", "{v}");
+    assert_eq!(v["capture_latency_frames"], 256, "{v}");
+    assert_eq!(v["playback_latency_frames"], 512, "{v}");
+    assert_eq!(v["latency_frames"], 1024, "{v}");
     let latency = v["latency_ms"].as_f64().unwrap();
-    assert!(latency > 5.3 && latency < 60.0, "latency {latency} ms");
+    assert!((latency - 1024.0 / 48.0).abs() < 1e-6, "latency {latency} ms");
+    assert!(v["callback_us"]["p99"].as_f64().is_some_and(|p| p > 0.0), "{v}");
+    assert!(v["realtime"].is_null(), "no real-time priority unless asked: {v}");
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// At a 64-frame period with `--zero-latency` the latency is 192 frames (4.000 ms): capture 64 +
+/// engine 0 + playback 128; `--no-connect` leaves the ports unconnected and says so.
+#[test]
+fn monitor_zero_latency_at_period_64_and_no_connect() {
+    let _serial = serial();
+    let Some(server) = jack_or_skip("monitor_zero_latency_at_period_64_and_no_connect", 64) else { return };
+    let dir = scratch("zero64");
+    let ir = write_ir(&dir, 1.0);
+    let json = dir.join("summary.json");
+    let out = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--zero-latency", "--seconds", "2", "--ir"])
+        .arg(&ir)
+        .arg("--summary-json")
+        .arg(&json)
+        .output()
+        .unwrap();
+    let (_, err) = text(&out);
+    eprintln!("{err}");
+    assert!(out.status.success(), "{err}");
+    assert!(err.contains("latency: 192 frames (4.000 ms) = capture 64 + engine 0 + playback 128"), "{err}");
+    let v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(v["latency_frames"], 192, "{v}");
+    assert!(v["input_device"].as_str().is_some_and(|s| s.contains("system:capture_1")), "{v}");
+    let out = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--no-connect", "--seconds", "1", "--ir"])
+        .arg(&ir)
+        .arg("--summary-json")
+        .arg(&json)
+        .output()
+        .unwrap();
+    let (_, err) = text(&out);
+    assert!(out.status.success(), "{err}");
+    assert!(err.contains("in (not connected) -> out (not connected)"), "{err}");
+    let out = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--ring-margin", "64", "--seconds", "1", "--ir"])
+        .arg(&ir)
+        .output()
+        .unwrap();
+    let (_, err) = text(&out);
+    assert!(!out.status.success() && err.contains("--ring-margin does not apply to JACK"), "{err}");
     let _ = std::fs::remove_dir_all(&dir);
 }
 

@@ -14,9 +14,9 @@ use std::path::PathBuf;
 use std::time::{Duration, Instant};
 
 use clap::Args;
-use partita_core::{CostModel, Engine, EngineOptions, Kernel, Mix, Planner, Routing, Shape};
+use partita_core::{Control, CostModel, Engine, EngineOptions, Kernel, Mix, Planner, PreparedIr, Routing, Shape};
 use partita_device::{
-    Ceiling, DeviceOptions, DeviceSelector, EngineSide, LiveDevices, SafetyOptions, Stats, StreamOptions,
+    Ceiling, DeviceOptions, DeviceSelector, EngineSide, Fault, LiveDevices, SafetyOptions, Stats, StreamOptions,
 };
 use partita_io::{load_ir, read_wav_info, IrOptions, Normalize};
 use serde_json::json;
@@ -68,6 +68,17 @@ pub struct MonitorArgs {
     /// Ask for real-time (SCHED_FIFO) priorities for engine worker threads (with --schedule workers).
     #[arg(long)]
     realtime_workers: bool,
+    /// Ask for real-time (SCHED_FIFO) priority for the audio callback thread on its first callback, and
+    /// for worker threads below it; the summary says what was granted. Needs the privilege (rtprio).
+    #[arg(long)]
+    realtime: bool,
+    /// JACK: connect partita's ports to the server's physical ports (default; --input-channels and
+    /// --output-channels choose which, 1-based).
+    #[arg(long, overrides_with = "no_connect")]
+    connect: bool,
+    /// JACK: leave partita's ports unconnected (connect them with a patchbay or jack_connect).
+    #[arg(long)]
+    no_connect: bool,
     /// Level of the convolved (wet) signal, linear [default: 1].
     #[arg(long, value_name = "W", default_value_t = 1.0, allow_negative_numbers = true)]
     wet: f64,
@@ -130,6 +141,159 @@ fn db(x: f32) -> String {
     }
 }
 
+/// What an engine is built from, kept so that the duplex JACK client can build a new one when the
+/// server's rate or period changes (on the control thread).
+#[derive(Debug, Clone)]
+struct Recipe {
+    ir: PathBuf,
+    alt_ir: Option<PathBuf>,
+    ir_options: IrOptions,
+    routing: Routing,
+    block: usize,
+    zero_latency: bool,
+    latency_ms: Option<f64>,
+    schedule: super::ScheduleArgs,
+    realtime_workers: bool,
+    mix: Mix,
+}
+
+/// An engine with its plan, and the other IR prepared for it.
+struct Built {
+    engine: Engine,
+    plan: partita_core::Plan,
+    /// How `--latency-ms` chose the plan.
+    why: Option<String>,
+    alt: Option<partita_core::ImpulseResponse>,
+}
+
+impl Recipe {
+    /// Loads the IRs at `rate` and builds the engine for host calls of `host_period` frames. `say`
+    /// receives notes for the user (resampling, the latency plan).
+    fn build(
+        &self,
+        rate: u32,
+        host_period: usize,
+        say: &mut dyn FnMut(String),
+    ) -> Result<Built, Box<dyn std::error::Error>> {
+        let ir_options = IrOptions { sample_rate_hz: Some(rate), ..self.ir_options };
+        let mut load = |path: &PathBuf| -> Result<partita_core::ImpulseResponse, Box<dyn std::error::Error>> {
+            let loaded = load_ir(path, &ir_options)?;
+            if loaded.source.sample_rate_hz != rate {
+                say(format!(
+                    "note: {} was resampled from {} Hz to the device's {rate} Hz",
+                    path.display(),
+                    loaded.source.sample_rate_hz
+                ));
+            }
+            Ok(loaded.ir)
+        };
+        let ir = load(&self.ir)?;
+        let alt = self.alt_ir.as_ref().map(&mut load).transpose()?;
+        if let Some(alt) = &alt {
+            if alt.channels() != ir.channels() {
+                return Err(format!(
+                    "{}: {} channels, but {} has {}; the two IRs need the same channels and routing",
+                    self.alt_ir.as_ref().map_or(String::new(), |p| p.display().to_string()),
+                    alt.channels(),
+                    self.ir.display(),
+                    ir.channels()
+                )
+                .into());
+            }
+        }
+        // Plan for the longer of the two, so either fits the engine's levels.
+        let plan_frames = ir.frames().max(alt.as_ref().map_or(0, |a| a.frames()));
+        let map = self.routing.resolve(ir.channels())?;
+        // The engine sees calls of the device's period: worker levels must be at least twice as long (see
+        // Planner::host_period_frames).
+        let planner = Planner::new()
+            .block_frames(self.block)
+            .host_period_frames(host_period)
+            .zero_latency(self.zero_latency)
+            .cost_model(CostModel::Measured(machine_costs(Kernel::detect(), false)))
+            .shape(Shape::of(&map));
+        let planner = self.schedule.apply(planner, rate)?;
+        let (plan, why) = if let Some(ms) = self.latency_ms {
+            let budget = (ms * f64::from(rate) / 1000.0).floor() as usize;
+            let (plan, why) = planner.plan_for_latency(budget, plan_frames)?;
+            (plan, Some(why))
+        } else {
+            (planner.plan(plan_frames)?, None)
+        };
+        let options = EngineOptions {
+            realtime_workers: self.realtime_workers,
+            mix: self.mix,
+            host_period_frames: Some(host_period),
+            ..EngineOptions::new(MAX_HOST_FRAMES.max(host_period))
+        };
+        let engine = Engine::with_options(&plan, &ir, self.routing, options)?;
+        Ok(Built { engine, plan, why, alt })
+    }
+}
+
+/// The largest host call the engine takes in one piece (longer calls are split).
+const MAX_HOST_FRAMES: usize = 4096;
+
+/// The running stream: the duplex JACK client, or the cpal streams and their ring for other hosts.
+enum Live {
+    Bridged(partita_device::LiveStream),
+    #[cfg(feature = "jack")]
+    Duplex(partita_device::DuplexStream),
+}
+
+impl Live {
+    fn poll_fault(&mut self) -> Option<Fault> {
+        match self {
+            Self::Bridged(l) => l.poll_fault(),
+            #[cfg(feature = "jack")]
+            Self::Duplex(d) => d.poll(),
+        }
+    }
+
+    fn unmute(&self) {
+        match self {
+            Self::Bridged(l) => l.handle().unmute(),
+            #[cfg(feature = "jack")]
+            Self::Duplex(d) => d.unmute(),
+        }
+    }
+
+    fn take_peaks(&self) -> partita_device::Peaks {
+        match self {
+            Self::Bridged(l) => l.handle().take_peaks(),
+            #[cfg(feature = "jack")]
+            Self::Duplex(d) => d.take_peaks(),
+        }
+    }
+
+    fn stats(&self) -> Stats {
+        match self {
+            Self::Bridged(l) => l.stats(),
+            #[cfg(feature = "jack")]
+            Self::Duplex(d) => d.stats(),
+        }
+    }
+
+    fn stop(self) -> Stats {
+        match self {
+            Self::Bridged(l) => l.stop(),
+            #[cfg(feature = "jack")]
+            Self::Duplex(d) => d.stop(),
+        }
+    }
+}
+
+/// What the summary says about where the audio went.
+struct Route {
+    host: String,
+    rate: u32,
+    input: String,
+    output: String,
+    engine_side: &'static str,
+    /// The duplex client's latency as JACK reports it: capture, engine, playback frames.
+    jack_latency: Option<(u32, u32, u32)>,
+}
+
 /// Runs `partita monitor`.
 pub fn run(args: MonitorArgs) -> CmdResult {
     if let Some(s) = args.seconds {
@@ -145,6 +309,14 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     if !(args.ceiling_db.is_finite() && args.ceiling_db <= 0.0) {
         return Err(format!("--ceiling-db must be 0 dBFS or below, got {}", args.ceiling_db).into());
     }
+    if !(args.swap_fade_ms.is_finite() && args.swap_fade_ms >= 0.0) {
+        return Err(format!("--swap-fade-ms must be a non-negative number, got {}", args.swap_fade_ms).into());
+    }
+    if let Some(ms) = args.latency_ms {
+        if !(ms.is_finite() && ms >= 0.0) {
+            return Err(format!("--latency-ms must be a non-negative number, got {ms}").into());
+        }
+    }
     eprintln!("{}", partita_device::CAUTION);
 
     // The IR's header gives the routing, hence the engine's channels, before the devices are opened.
@@ -152,130 +324,216 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     let routing = Routing::choose_for_ir(args.routing, usize::from(info.channels))
         .map_err(|e| format!("{}: {e}", args.ir.display()))?;
     let (inputs, outputs) = (routing.inputs(), routing.outputs());
-    let device_options = DeviceOptions {
-        host: args.host.clone(),
-        input: args.input.clone(),
-        output: args.output.clone(),
-        sample_rate_hz: args.rate,
-        device_frames: args.device_frames,
-        input_channels: args.input_channels.as_deref().map(|s| parse_channel_list(s, "input-channels")).transpose()?,
-        output_channels: args
-            .output_channels
-            .as_deref()
-            .map(|s| parse_channel_list(s, "output-channels"))
-            .transpose()?,
+    let input_channels = args.input_channels.as_deref().map(|s| parse_channel_list(s, "input-channels")).transpose()?;
+    let output_channels =
+        args.output_channels.as_deref().map(|s| parse_channel_list(s, "output-channels")).transpose()?;
+    let safety = SafetyOptions {
+        fade_in_ms: args.fade_in_ms.max(0.0),
+        ceiling_dbfs: args.ceiling_db,
+        ceiling: if args.hard_clip { Ceiling::Hard } else { Ceiling::Soft },
+        ..SafetyOptions::default()
     };
-    let devices = LiveDevices::open(&device_options, inputs, outputs)?;
-    let rate = devices.sample_rate_hz();
+    let recipe = Recipe {
+        ir: args.ir.clone(),
+        alt_ir: args.alt_ir.clone(),
+        ir_options: IrOptions { normalize: args.normalize, routing: Some(routing), ..IrOptions::default() },
+        routing,
+        block: args.block.unwrap_or(64),
+        zero_latency: args.zero_latency,
+        latency_ms: args.latency_ms,
+        schedule: args.schedule.clone(),
+        realtime_workers: args.realtime_workers || args.realtime,
+        // The stream starts at its wet/dry settings, without a ramp; the engine's own mixer is the only one.
+        mix: Mix { wet: args.wet as f32, dry: args.dry as f32, ..Mix::default() },
+    };
+    let jack = args.host.as_deref().is_some_and(|h| h.eq_ignore_ascii_case("jack"));
+    // New engines built by the duplex client after a rate or period change send their control handle
+    // (and the other IR, prepared for them) here.
+    let (rebuilt_tx, rebuilt_rx) = std::sync::mpsc::channel::<(Control, Option<PreparedIr>)>();
+    let swap_fade_ms = args.swap_fade_ms;
 
-    if !(args.swap_fade_ms.is_finite() && args.swap_fade_ms >= 0.0) {
-        return Err(format!("--swap-fade-ms must be a non-negative number, got {}", args.swap_fade_ms).into());
-    }
-    let ir_options = IrOptions {
-        sample_rate_hz: Some(rate),
-        normalize: args.normalize,
-        routing: Some(routing),
-        ..IrOptions::default()
-    };
-    let load = |path: &PathBuf| -> Result<partita_core::ImpulseResponse, Box<dyn std::error::Error>> {
-        let loaded = load_ir(path, &ir_options)?;
-        if loaded.source.sample_rate_hz != rate {
+    let (built, mut live, route) = if jack {
+        #[cfg(feature = "jack")]
+        {
+            for (flag, given) in [
+                ("--input", args.input != DeviceSelector::Default),
+                ("--output", args.output != DeviceSelector::Default),
+                ("--engine-in-output", args.engine_in_output),
+                ("--ring-margin", args.ring_margin.is_some()),
+            ] {
+                if given {
+                    return Err(format!(
+                        "{flag} does not apply to JACK: partita runs as one JACK client with its own ports \
+                         (connect them with --input-channels/--output-channels, --no-connect, or a patchbay)"
+                    )
+                    .into());
+                }
+            }
+            let options = partita_device::DuplexOptions {
+                connect: !args.no_connect,
+                input_channels,
+                output_channels,
+                safety,
+                realtime: args.realtime,
+                ..partita_device::DuplexOptions::default()
+            };
+            let duplex = partita_device::JackDuplex::open(&options, inputs, outputs)?;
+            let (rate, period) = (duplex.sample_rate_hz(), duplex.period_frames());
+            if let Some(r) = args.rate.filter(|&r| r != rate) {
+                return Err(format!(
+                    "--rate {r}: the JACK server runs at {rate} Hz; restart it at {r} Hz or omit --rate"
+                )
+                .into());
+            }
+            if let Some(f) = args.device_frames.filter(|&f| f != period) {
+                return Err(format!(
+                    "--device-frames {f}: the JACK server runs at {period} frames per period; change it (jack_bufsize {f}) \
+                     or omit --device-frames"
+                )
+                .into());
+            }
+            let built = recipe.build(rate, period as usize, &mut |note| eprintln!("{note}"))?;
+            // A rebuild keeps the block and mode this plan chose (under --latency-ms too).
+            let again = Recipe {
+                block: built.plan.block_frames,
+                zero_latency: built.plan.zero_latency,
+                latency_ms: None,
+                ..recipe.clone()
+            };
+            let tx = rebuilt_tx.clone();
+            let rebuild: partita_device::RebuildFn = Box::new(move |rate, period| {
+                let b = again.build(rate, period, &mut |_| {}).map_err(|e| e.to_string())?;
+                let mut engine = b.engine;
+                let control = engine.control().ok_or("the engine's control handle was taken")?;
+                let spare = b.alt.as_ref().map(|a| control.prepare(a)).transpose().map_err(|e| e.to_string())?;
+                let _ = tx.send((control, spare));
+                Ok(engine)
+            });
+            let mut built = built;
+            let control = built.engine.control().ok_or("the engine's control handle was taken")?;
+            let spare = built.alt.as_ref().map(|a| control.prepare(a)).transpose()?;
+            let _ = rebuilt_tx.send((control, spare));
+            let stream = duplex.start(built.engine, rebuild)?;
+            let latency = stream.latency();
+            // The ports at the other end of our connections, inputs then outputs.
+            let mine = format!("{}:", stream.info().client);
+            let ports = |ours: &str| {
+                let list: Vec<&str> = stream
+                    .info()
+                    .connections
+                    .iter()
+                    .filter(|(a, b)| a.starts_with(&format!("{mine}{ours}")) || b.starts_with(&format!("{mine}{ours}")))
+                    .map(|(a, b)| if a.starts_with(&mine) { b.as_str() } else { a.as_str() })
+                    .collect();
+                if list.is_empty() {
+                    "(not connected)".to_string()
+                } else {
+                    list.join(", ")
+                }
+            };
+            let route = Route {
+                host: "JACK".into(),
+                rate,
+                input: ports("in_"),
+                output: ports("out_"),
+                engine_side: "duplex",
+                jack_latency: Some((latency.capture_frames, latency.engine_frames, latency.playback_frames)),
+            };
             eprintln!(
-                "note: {} was resampled from {} Hz to the device's {rate} Hz",
-                path.display(),
-                loaded.source.sample_rate_hz
+                "monitor: JACK at {rate} Hz, period {period} frames; client `{}` (one duplex client, no ring); in {} -> out {}",
+                stream.info().client,
+                route.input,
+                route.output
             );
+            eprintln!(
+                "latency: {} frames ({:.3} ms) = capture {} + engine {} + playback {}, as JACK reports the connected ports",
+                latency.total_frames(),
+                f64::from(latency.total_frames()) * 1000.0 / f64::from(rate),
+                latency.capture_frames,
+                latency.engine_frames,
+                latency.playback_frames
+            );
+            (PlanNote { plan: built.plan, why: built.why }, Live::Duplex(stream), route)
         }
-        Ok(loaded.ir)
-    };
-    let ir = load(&args.ir)?;
-    let alt = args.alt_ir.as_ref().map(&load).transpose()?;
-    if let Some(alt) = &alt {
-        if alt.channels() != ir.channels() {
-            return Err(format!(
-                "{}: {} channels, but {} has {}; the two IRs need the same channels and routing",
-                args.alt_ir.as_ref().map_or(String::new(), |p| p.display().to_string()),
-                alt.channels(),
-                args.ir.display(),
-                ir.channels()
-            )
+        #[cfg(not(feature = "jack"))]
+        {
+            return Err(partita_device::DeviceError::NoHost {
+                name: "jack".into(),
+                available: partita_device::host_names(),
+            }
             .into());
         }
-    }
-    // Plan for the longer of the two, so either fits the engine's levels.
-    let plan_frames = ir.frames().max(alt.as_ref().map_or(0, |a| a.frames()));
-    let map = routing.resolve(ir.channels())?;
-    // The engine sees calls of the device's period: worker levels must be at least twice as long (see
-    // Planner::host_period_frames). When the host does not say, assume 1024 frames, a long ALSA period.
-    let host_period = devices.period_frames().map_or(UNKNOWN_PERIOD_FRAMES, |p| p as usize);
-    let planner = Planner::new()
-        .block_frames(args.block.unwrap_or(64))
-        .host_period_frames(host_period)
-        .zero_latency(args.zero_latency)
-        .cost_model(CostModel::Measured(machine_costs(Kernel::detect(), false)))
-        .shape(Shape::of(&map));
-    let planner = args.schedule.apply(planner, rate)?;
-    let plan = if let Some(ms) = args.latency_ms {
-        if !(ms.is_finite() && ms >= 0.0) {
-            return Err(format!("--latency-ms must be a non-negative number, got {ms}").into());
-        }
-        let budget = (ms * f64::from(rate) / 1000.0).floor() as usize;
-        let (plan, why) = planner.plan_for_latency(budget, plan_frames)?;
-        eprintln!("plan: {why}");
-        plan
     } else {
-        planner.plan(plan_frames)?
+        let device_options = DeviceOptions {
+            host: args.host.clone(),
+            input: args.input.clone(),
+            output: args.output.clone(),
+            sample_rate_hz: args.rate,
+            device_frames: args.device_frames,
+            input_channels,
+            output_channels,
+        };
+        let devices = LiveDevices::open(&device_options, inputs, outputs)?;
+        let rate = devices.sample_rate_hz();
+        // When the host does not say, assume 1024 frames, a long ALSA period.
+        let host_period = devices.period_frames().map_or(UNKNOWN_PERIOD_FRAMES, |p| p as usize);
+        let mut built = recipe.build(rate, host_period, &mut |note| eprintln!("{note}"))?;
+        let control = built.engine.control().ok_or("the engine's control handle was taken")?;
+        let spare = built.alt.as_ref().map(|a| control.prepare(a)).transpose()?;
+        let _ = rebuilt_tx.send((control, spare));
+        let stream_options = StreamOptions {
+            side: if args.engine_in_output { EngineSide::Playback } else { EngineSide::Capture },
+            margin_frames: args.ring_margin,
+            safety,
+            realtime: args.realtime,
+            ..StreamOptions::default()
+        };
+        let stream = devices.start(built.engine, &stream_options)?;
+        let info = stream.info().clone();
+        let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
+            (Some(p), _) => format!("{p} frames"),
+            (None, Some(r)) => format!("{r} frames (requested)"),
+            (None, None) => "host default".to_string(),
+        };
+        eprintln!(
+            "monitor: {} at {} Hz; in `{}` ({} ch {}, period {}) -> out `{}` ({} ch {}, period {})",
+            info.host,
+            rate,
+            info.input.device,
+            info.input.channels,
+            info.input.format,
+            period(&info.input),
+            info.output.device,
+            info.output.channels,
+            info.output.format,
+            period(&info.output)
+        );
+        let route = Route {
+            host: info.host.clone(),
+            rate,
+            input: info.input.device.clone(),
+            output: info.output.device.clone(),
+            engine_side: match info.side {
+                EngineSide::Capture => "input",
+                EngineSide::Playback => "output",
+            },
+            jack_latency: None,
+        };
+        (PlanNote { plan: built.plan, why: built.why }, Live::Bridged(stream), route)
     };
-    // The stream starts at its wet/dry settings, without a ramp; the engine's own mixer is the only one.
-    let mix = Mix { wet: args.wet as f32, dry: args.dry as f32, ..Mix::default() };
-    let options = EngineOptions {
-        realtime_workers: args.realtime_workers,
-        mix,
-        host_period_frames: Some(host_period),
-        ..EngineOptions::new(4096)
-    };
-    let mut engine = Engine::with_options(&plan, &ir, routing, options)?;
-    let mut control = engine.control().ok_or("the engine's control handle was taken")?;
-    // The IR not playing, prepared and ready to hand over; it comes back when swapped out.
-    let mut spare = alt.as_ref().map(|a| control.prepare(a)).transpose()?;
-    let fade_frames = control.frames_for_ms(args.swap_fade_ms);
+    drop(rebuilt_tx);
+    let plan = built.plan;
+    let rate = route.rate;
+    if let Some(why) = &built.why {
+        eprintln!("plan: {why}");
+    }
+    let (mut control, mut spare) = rebuilt_rx.recv().map_err(|_| "the engine's control handle was lost")?;
+    let mut fade_frames = control.frames_for_ms(swap_fade_ms);
     let mut swaps = 0u64;
-
-    let stream_options = StreamOptions {
-        side: if args.engine_in_output { EngineSide::Playback } else { EngineSide::Capture },
-        margin_frames: args.ring_margin,
-        safety: SafetyOptions {
-            fade_in_ms: args.fade_in_ms.max(0.0),
-            ceiling_dbfs: args.ceiling_db,
-            ceiling: if args.hard_clip { Ceiling::Hard } else { Ceiling::Soft },
-            ..SafetyOptions::default()
-        },
-        ..StreamOptions::default()
-    };
     let signals = Signals::install().map_err(|e| format!("cannot install the signal handlers: {e}"))?;
-    let mut live = devices.start(engine, &stream_options)?;
-    let info = live.info().clone();
-    let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
-        (Some(p), _) => format!("{p} frames"),
-        (None, Some(r)) => format!("{r} frames (requested)"),
-        (None, None) => "host default".to_string(),
-    };
-    eprintln!(
-        "monitor: {} at {} Hz; in `{}` ({} ch {}, period {}) -> out `{}` ({} ch {}, period {})",
-        info.host,
-        rate,
-        info.input.device,
-        info.input.channels,
-        info.input.format,
-        period(&info.input),
-        info.output.device,
-        info.output.channels,
-        info.output.format,
-        period(&info.output)
-    );
     eprintln!(
         "engine: {routing:?}, block {}{}, {} level(s) ({}; schedule {}: {}), latency {} frames ({:.3} ms); wet {} dry {}; ceiling {} dBFS \
-         ({}); Ctrl-C stops, SIGUSR1 toggles bypass, SIGUSR2 unmutes{}",
+         ({}){}; Ctrl-C stops, SIGUSR1 toggles bypass, SIGUSR2 unmutes{}",
         plan.block_frames,
         if plan.zero_latency { " zero-latency" } else { "" },
         plan.levels.len(),
@@ -288,6 +546,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         args.dry,
         args.ceiling_db,
         if args.hard_clip { "hard clip" } else { "soft clip" },
+        if args.realtime { "; real-time priority asked" } else { "" },
         if spare.is_some() { ", SIGHUP swaps to the other IR" } else { "" },
     );
 
@@ -297,6 +556,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     let mut last_status = Instant::now();
     let mut fault = None;
     let mut bypass = false;
+    let mut rebuilds = 0u64;
     loop {
         std::thread::sleep(Duration::from_millis(20));
         if let Some(f) = live.poll_fault() {
@@ -306,6 +566,16 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         if signals.stop_requested() || deadline.is_some_and(|d| started.elapsed() >= d) {
             break;
         }
+        while let Ok((c, s)) = rebuilt_rx.try_recv() {
+            // The server's rate or period changed and the engine was rebuilt: its control handle replaces
+            // the old one, and the new engine starts on the first IR, unbypassed.
+            control = c;
+            spare = s;
+            fade_frames = control.frames_for_ms(swap_fade_ms);
+            bypass = false;
+            rebuilds += 1;
+            eprintln!("\nnote: the JACK server's rate or period changed; the engine was rebuilt for it");
+        }
         if signals.take_toggle_bypass() {
             match control.send(partita_core::Command::Bypass(!bypass)) {
                 Ok(()) => bypass = !bypass,
@@ -314,9 +584,9 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             }
         }
         if signals.take_unmute() {
-            live.handle().unmute();
+            live.unmute();
         }
-        for event in control.poll() {
+        while let Some(event) = control.next_event() {
             if let partita_core::Event::Retired { ir, .. } = event {
                 spare = Some(ir); // freed (or kept) here, never on the audio thread
             }
@@ -333,7 +603,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         }
         if terminal && last_status.elapsed() >= Duration::from_millis(250) {
             last_status = Instant::now();
-            let peaks = live.handle().take_peaks();
+            let peaks = live.take_peaks();
             let s = live.stats();
             let mut line = format!(
                 "in {} dBFS | out {} dBFS | load {:5.2}% | latency {:6.2} ms | xruns {} | overruns {}",
@@ -368,14 +638,18 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     }
     let stats = live.stop();
     let swaps_completed = control.status().swaps_completed;
-    print_summary(&stats, fault.as_ref().map(ToString::to_string).as_deref());
+    print_summary(&stats, &route, fault.as_ref().map(ToString::to_string).as_deref());
     if args.alt_ir.is_some() {
         eprintln!("  IR swaps     {swaps} requested, {swaps_completed} completed");
     }
+    if rebuilds > 0 {
+        eprintln!("  rebuilds     {rebuilds} (the server's rate or period changed)");
+    }
     if let Some(path) = &args.summary_json {
-        let mut j = summary_json(&stats, &info, &plan, fault.as_ref().map(ToString::to_string));
+        let mut j = summary_json(&stats, &route, &plan, fault.as_ref().map(ToString::to_string));
         j["swaps_requested"] = json!(swaps);
         j["swaps_completed"] = json!(swaps_completed);
+        j["rebuilds"] = json!(rebuilds);
         std::fs::write(path, serde_json::to_string_pretty(&j)? + "\n")
             .map_err(|e| format!("{}: cannot write the summary: {e}", path.display()))?;
     }
@@ -385,33 +659,60 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     }
 }
 
-fn print_summary(s: &Stats, fault: Option<&str>) {
+/// The plan and the note of a [`Built`] whose engine went to the stream.
+struct PlanNote {
+    plan: partita_core::Plan,
+    why: Option<String>,
+}
+
+fn print_summary(s: &Stats, route: &Route, fault: Option<&str>) {
     eprintln!("summary: {:.1} s of audio", s.seconds);
-    eprintln!(
-        "  latency      {:.3} ms mean input to output (min {:.3}, max {:.3}; engine {:.3})",
-        s.latency_ms, s.latency_min_ms, s.latency_max_ms, s.engine_latency_ms
-    );
+    match route.jack_latency {
+        Some((capture, engine, playback)) => eprintln!(
+            "  latency      {} frames = {:.3} ms input to output (capture {capture} + engine {engine} + playback \
+             {playback}, as JACK reports the connected ports)",
+            capture + engine + playback,
+            s.latency_ms
+        ),
+        None => eprintln!(
+            "  latency      {:.3} ms mean input to output (min {:.3}, max {:.3}; engine {:.3})",
+            s.latency_ms, s.latency_min_ms, s.latency_max_ms, s.engine_latency_ms
+        ),
+    }
     eprintln!(
         "  load         {:.3}% of one core mean; slowest callback {:.1}% of its period",
         s.mean_load_pct, s.max_callback_pct
     );
-    eprintln!("  xruns        {} reported by the host", s.host_xruns);
+    let t = &s.callback_times;
     eprintln!(
-        "  overruns     {} of ours ({} ring underruns, {} ring overflows, {} callbacks over their period)",
+        "  callback     {:.1} us p50, {:.1} us p99, {:.1} us p99.9, {:.1} us max (engine callback, wall clock, {} calls)",
+        t.p50_us, t.p99_us, t.p999_us, t.max_us, t.count
+    );
+    eprintln!(
+        "  host         {} xruns reported by the host; {} callbacks preempted (over their period with CPU time \
+         within it: the thread lacked real-time priority)",
+        s.host_xruns, s.preempted_callbacks
+    );
+    eprintln!(
+        "  overruns     {} of ours ({} late worker/sliced results, {} callbacks over their period, {} ring underruns, \
+         {} ring overflows, {} engine errors)",
         s.overruns(),
+        s.late_results,
+        s.late_callbacks,
         s.ring_underruns,
         s.ring_overflows,
-        s.late_callbacks
+        s.engine_errors
     );
-    eprintln!(
-        "  drift        {} corrections ({} slipped, {} repeated); {} re-primes, {} resyncs",
-        s.drift_corrections(),
-        s.drift_slips,
-        s.drift_repeats,
-        s.reprimes,
-        s.resyncs
-    );
-    eprintln!("  late results {}", s.late_results);
+    if route.jack_latency.is_none() {
+        eprintln!(
+            "  drift        {} corrections ({} slipped, {} repeated); {} re-primes, {} resyncs",
+            s.drift_corrections(),
+            s.drift_slips,
+            s.drift_repeats,
+            s.reprimes,
+            s.resyncs
+        );
+    }
     eprintln!(
         "  non-finite   {} samples ({} in, {} out)",
         s.nonfinite_samples(),
@@ -422,30 +723,37 @@ fn print_summary(s: &Stats, fault: Option<&str>) {
         Some(m) => eprintln!("  safety       {} mute(s); muted at the end: {m}", s.mutes),
         None => eprintln!("  safety       {} mute(s)", s.mutes),
     }
+    match s.callback_priority {
+        None => {}
+        Some(Ok(p)) => eprintln!("  real-time    granted: SCHED_FIFO priority {p} for the callback thread"),
+        Some(Err(e)) => eprintln!(
+            "  real-time    refused ({}): the callback ran at normal priority (grant rtprio, e.g. the audio group's \
+             limits, or run as a user allowed SCHED_FIFO)",
+            std::io::Error::from_raw_os_error(e)
+        ),
+    }
     if let Some(f) = fault {
         eprintln!("  ended by     {f}");
     }
 }
 
-fn summary_json(
-    s: &Stats,
-    info: &partita_device::LiveInfo,
-    plan: &partita_core::Plan,
-    fault: Option<String>,
-) -> serde_json::Value {
+fn summary_json(s: &Stats, route: &Route, plan: &partita_core::Plan, fault: Option<String>) -> serde_json::Value {
+    let t = &s.callback_times;
     json!({
         "seconds": s.seconds,
         "xruns": s.host_xruns,
+        "preempted_callbacks": s.preempted_callbacks,
         "overruns": s.overruns(),
+        "late_results": s.late_results,
+        "late_callbacks": s.late_callbacks,
         "ring_underruns": s.ring_underruns,
         "ring_overflows": s.ring_overflows,
-        "late_callbacks": s.late_callbacks,
+        "engine_errors": s.engine_errors,
         "drift_corrections": s.drift_corrections(),
         "drift_slips": s.drift_slips,
         "drift_repeats": s.drift_repeats,
         "reprimes": s.reprimes,
         "resyncs": s.resyncs,
-        "late_results": s.late_results,
         "nonfinite_samples": s.nonfinite_samples(),
         "nonfinite_inputs": s.nonfinite_inputs,
         "nonfinite_outputs": s.nonfinite_outputs,
@@ -454,19 +762,28 @@ fn summary_json(
         "latency_ms": s.latency_ms,
         "latency_min_ms": s.latency_min_ms,
         "latency_max_ms": s.latency_max_ms,
+        "latency_frames": route.jack_latency.map(|(c, e, p)| c + e + p),
+        "capture_latency_frames": route.jack_latency.map(|l| l.0),
+        "playback_latency_frames": route.jack_latency.map(|l| l.2),
         "engine_latency_ms": s.engine_latency_ms,
         "mean_load_pct": s.mean_load_pct,
         "max_callback_pct": s.max_callback_pct,
-        "host": info.host,
-        "sample_rate_hz": info.sample_rate_hz,
-        "input_device": info.input.device,
-        "output_device": info.output.device,
+        "callback_us": { "p50": t.p50_us, "p99": t.p99_us, "p99_9": t.p999_us, "max": t.max_us, "count": t.count },
+        "realtime": match s.callback_priority {
+            None => serde_json::Value::Null,
+            Some(Ok(p)) => json!({ "granted": true, "priority": p }),
+            Some(Err(e)) => json!({ "granted": false, "error": std::io::Error::from_raw_os_error(e).to_string() }),
+        },
+        "host": route.host,
+        "sample_rate_hz": route.rate,
+        "input_device": route.input,
+        "output_device": route.output,
         "input_period_frames": s.input_period_frames,
         "output_period_frames": s.output_period_frames,
         "block_frames": plan.block_frames,
         "zero_latency": plan.zero_latency,
         "schedules": super::schedules_used(plan),
-        "engine_side": match info.side { EngineSide::Capture => "input", EngineSide::Playback => "output" },
+        "engine_side": route.engine_side,
         "fault": fault,
     })
 }

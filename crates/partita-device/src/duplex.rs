@@ -331,8 +331,9 @@ impl JackDuplex {
         }
         let (client, _status) = Client::new(&options.client_name, ClientOptions::NO_START_SERVER).map_err(|e| {
             DeviceError::Jack(format!(
-                "cannot connect to a JACK server ({e}); is one running? (start one with jackd or your desktop's \
-                 sound server, or choose another --host)"
+                "cannot connect to a JACK server ({e}); is the JACK server running (JACK_DEFAULT_SERVER={})? Start \
+                 one with jackd or your desktop's sound server, or choose another --host",
+                std::env::var("JACK_DEFAULT_SERVER").unwrap_or_else(|_| "default".into())
             ))
         })?;
         let audio = Some("32 bit float mono audio");

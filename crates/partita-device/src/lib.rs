@@ -1,8 +1,19 @@
 //! # partita-device
 //!
-//! Live audio through a Partita [`Engine`](partita_core::Engine) with cpal: an input stream and an
-//! output stream (cpal has no duplex stream) bridged by a `ringbuf` SPSC queue, the engine run in one
-//! of the two callbacks, a [safety stage](safety) last in the chain, and run-time counters.
+//! Live audio through a Partita [`Engine`](partita_core::Engine), two ways:
+//!
+//! - **JACK** (feature `jack`): `JackDuplex`, one JACK client with input and output ports and the
+//!   engine inside its process callback: no ring, no drift, an input-to-output latency that is exactly
+//!   the engine's plus the connected ports' (registered with JACK through a latency callback). This is
+//!   what `partita monitor --host jack` uses; see the `duplex` module's docs.
+//! - **Other hosts, through cpal**: an input stream and an output stream (cpal has no duplex stream)
+//!   bridged by a `ringbuf` SPSC queue, the engine run in one of the two callbacks. Described below.
+//!
+//! Either way a [safety stage](safety) comes last in the chain, and run-time counters ([`Stats`]) tell
+//! our own overruns (late results, callbacks over their period, ring under/overflows, engine errors)
+//! apart from the host's xruns and from callbacks the scheduler preempted, with the engine callback's
+//! time distribution (p50, p99, p99.9, max). `realtime` options ask SCHED_FIFO for the callback threads
+//! ([`CALLBACK_PRIORITY`]).
 //!
 //! - [`LiveDevices::open`] picks the host (ALSA; JACK with the `jack` feature), the devices (by
 //!   default, index or name), a configuration (channels, rate, PCM format, a fixed period where the
