@@ -117,10 +117,19 @@ fn tone(k: u64) -> f32 {
     (TONE_AMP * (std::f64::consts::TAU * TONE_HZ * k as f64 / f64::from(RATE)).sin()) as f32
 }
 
-/// The spectrum of `x` under the Blackman-Harris window: the strongest component's frequency and
-/// amplitude (from its main lobe's energy), and the largest component further than `guard_hz` from it,
-/// dB relative to it.
-fn spectrum(x: &[f32], guard_hz: f64) -> (f64, f64, f64) {
+/// What [`spectrum`] found.
+struct Spectrum {
+    /// The strongest component's frequency, Hz, and amplitude (from its main lobe's energy).
+    tone_hz: f64,
+    amplitude: f64,
+    /// The largest component further than the guard from it: frequency, and level relative to it, dB.
+    spur_hz: f64,
+    spur_db: f64,
+}
+
+/// The spectrum of `x` under the Blackman-Harris window, its strongest component and the largest
+/// one further than `guard_hz` from it.
+fn spectrum(x: &[f32], guard_hz: f64) -> Spectrum {
     let n = x.len();
     let a = BLACKMAN_HARRIS_4;
     let window: Vec<f64> = (0..n)
@@ -137,13 +146,21 @@ fn spectrum(x: &[f32], guard_hz: f64) -> (f64, f64, f64) {
     let hz_per_bin = f64::from(RATE) / n as f64;
     let (peak, &peak_power) = power.iter().enumerate().max_by(|a, b| a.1.total_cmp(b.1)).unwrap();
     let guard = (guard_hz / hz_per_bin).ceil() as usize;
-    let spur =
-        power.iter().enumerate().filter(|(i, _)| i.abs_diff(peak) > guard).map(|(_, &p)| p).fold(0.0f64, f64::max);
+    let (spur_bin, spur) = power
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| i.abs_diff(peak) > guard)
+        .fold((0, 0.0f64), |best, (i, &p)| if p > best.1 { (i, p) } else { best });
     // Parseval: a sinusoid of amplitude A puts N (A^2 / 4) sum(w^2) into its positive-frequency main
     // lobe (+-4 bins for this window), wherever it falls between bins.
     let lobe: f64 = power[peak.saturating_sub(4)..=(peak + 4).min(power.len() - 1)].iter().sum();
     let amplitude = 2.0 * (lobe / (n as f64 * window.iter().map(|w| w * w).sum::<f64>())).sqrt();
-    (peak as f64 * hz_per_bin, amplitude, 10.0 * (spur / peak_power).log10())
+    Spectrum {
+        tone_hz: peak as f64 * hz_per_bin,
+        amplitude,
+        spur_hz: spur_bin as f64 * hz_per_bin,
+        spur_db: 10.0 * (spur / peak_power).log10(),
+    }
 }
 
 /// The tone test of issue 19: after 2 s of settling, over 4 s, every component outside +-20 Hz of the
@@ -157,10 +174,11 @@ fn resampling_keeps_a_tone_clean_and_frame_slips_do_not() {
             let r = run(mode, &clocks, tone);
             let s = &r.stats;
             assert_eq!(s.ring_underruns + s.ring_overflows + s.reprimes, 0, "{mode:?} {skew}: {s:?}");
-            let (hz, amp, spur_db) = spectrum(&r.out[2 * RATE as usize..6 * RATE as usize], 20.0);
+            let Spectrum { tone_hz: hz, amplitude: amp, spur_hz, spur_db } =
+                spectrum(&r.out[2 * RATE as usize..6 * RATE as usize], 20.0);
             eprintln!(
-                "{mode:?}, input {:+.0} ppm: tone {hz:.2} Hz, amplitude {amp:.4}, largest spur {spur_db:.1} dB; \
-                 {} slips, {} repeats, {:.1} ppm",
+                "{mode:?}, input {:+.0} ppm: tone {hz:.2} Hz, amplitude {amp:.4}, largest spur {spur_db:.1} dB at \
+                 {spur_hz:.2} Hz; {} slips, {} repeats, {:.1} ppm",
                 (skew - 1.0) * 1e6,
                 s.drift_slips,
                 s.drift_repeats,
@@ -191,10 +209,10 @@ fn resampling_keeps_a_tone_clean_and_frame_slips_do_not() {
 #[test]
 fn one_dropped_frame_fails_the_tone_bound() {
     let mut x: Vec<f32> = (0..4 * RATE as u64 + 1).map(tone).collect();
-    let (_, _, clean_db) = spectrum(&x[..4 * RATE as usize], 20.0);
+    let clean_db = spectrum(&x[..4 * RATE as usize], 20.0).spur_db;
     assert!(clean_db < -90.0, "the analysis' own floor: {clean_db:.1} dB");
     x.remove(2 * RATE as usize);
-    let (_, _, slipped_db) = spectrum(&x[..4 * RATE as usize], 20.0);
+    let slipped_db = spectrum(&x[..4 * RATE as usize], 20.0).spur_db;
     eprintln!("one dropped frame: {slipped_db:.1} dB (clean: {clean_db:.1} dB)");
     assert!(slipped_db > -80.0, "one dropped frame: {slipped_db:.1} dB");
 }
