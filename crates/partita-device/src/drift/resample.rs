@@ -284,14 +284,17 @@ mod tests {
             [(0.0208, -100.0), (0.1, -100.0), (0.2, -100.0), (0.3, -100.0), (0.35, -100.0), (0.4, -95.0)]
         {
             for u in [1e-4, -3e-4, 7.3e-3] {
+                // Two channels: the tone, and its cosine at half the level (the channels stay apart).
                 let total = 6000;
-                let x: Vec<f32> =
-                    (0..total).map(|k| (2.0 * std::f64::consts::PI * f * k as f64).sin() as f32).collect();
-                let (mut prod, mut cons) = HeapRb::<f32>::new(total).split();
+                let phase = |k: f64| 2.0 * std::f64::consts::PI * f * k;
+                let x: Vec<f32> = (0..total)
+                    .flat_map(|k| [phase(k as f64).sin() as f32, (0.5 * phase(k as f64).cos()) as f32])
+                    .collect();
+                let (mut prod, mut cons) = HeapRb::<f32>::new(2 * total).split();
                 prod.push_slice(&x);
-                let mut r = RateReader::new(1, 256);
+                let mut r = RateReader::new(2, 256);
                 r.engage();
-                let mut out = vec![0.0f32; 256];
+                let mut out = vec![0.0f32; 2 * 256];
                 let mut worst = 0.0f64;
                 // Output frame m sits at input position (HALF_TAPS - 1) + m (1 + u) - (HALF_TAPS - 1),
                 // i.e. m (1 + u) into the tone (the history starts with HALF_TAPS - 1 zeros).
@@ -300,12 +303,12 @@ mod tests {
                     let need = r.need(0, 256, u, 0.0);
                     r.pull(&mut cons, need);
                     r.render(&mut out, 0, u, 0.0);
-                    for &y in &out {
+                    for y in out.chunks_exact(2) {
                         // Skip the start, where the kernel reaches into the zeros before the tone.
                         if m > 2 * HALF_TAPS {
                             let t = m as f64 * (1.0 + u);
-                            let want = (2.0 * std::f64::consts::PI * f * t).sin();
-                            worst = worst.max((f64::from(y) - want).abs());
+                            worst = worst.max((f64::from(y[0]) - phase(t).sin()).abs());
+                            worst = worst.max(2.0 * (f64::from(y[1]) - 0.5 * phase(t).cos()).abs());
                         }
                         m += 1;
                     }
