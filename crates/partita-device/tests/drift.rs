@@ -191,9 +191,15 @@ fn resampling_keeps_a_tone_clean_and_frame_slips_do_not() {
                 DriftMode::Resample => {
                     assert!(spur_db <= -80.0, "resampling, {skew}: largest spur {spur_db:.1} dB");
                     assert_eq!(s.drift_corrections(), 0);
-                    // The rate correction found the clocks' offset: 1/skew - 1 more or fewer frames read.
+                    // The rate correction found the clocks' offset: on average over the analysed 4 s, give or
+                    // take the end of the loop's start-up (it refills the look-ahead's 16 frames until 2 s
+                    // and settles with a time constant of about 1.3 s; the 60 s test checks it closer).
+                    let per_s = RATE as usize / clocks.out_frames;
+                    let window = &r.ppm[2 * per_s..6 * per_s];
+                    let mean = window.iter().sum::<f64>() / window.len() as f64;
                     let want = (skew - 1.0) * 1e6;
-                    assert!((s.drift_ppm - want).abs() < 30.0, "{skew}: {} ppm, want {want}", s.drift_ppm);
+                    eprintln!("  mean correction over the window {mean:.1} ppm");
+                    assert!((mean - want).abs() < 25.0, "{skew}: {mean:.1} ppm on average, want {want}");
                 }
                 DriftMode::FrameSlip => {
                     assert!(spur_db > -80.0, "frame slips, {skew}: largest spur {spur_db:.1} dB passed the bound");
@@ -217,36 +223,40 @@ fn one_dropped_frame_fails_the_tone_bound() {
     assert!(slipped_db > -80.0, "one dropped frame: {slipped_db:.1} dB");
 }
 
-/// 60 s at +-1000 ppm with jitter: no underrun, overflow or resync; after the loop has settled the
-/// level (the reported latency) stays within a few frames, and the correction matches the offset.
+/// 60 s at +-1000 ppm with jitter, short and long periods: no underrun, overflow or resync; the level
+/// (the reported latency: the phase-compensated ring level plus constants) stays within a few frames
+/// once the loop has settled and within a few dozen through the start, and the correction matches the
+/// offset.
 #[test]
 fn ring_level_stays_bounded_at_1000_ppm() {
-    for skew in [1.0 + 1000e-6, 1.0 - 1000e-6] {
-        let clocks = Clocks { in_frames: 64, out_frames: 64, ..Clocks::new(skew, 60.0) };
-        let r = run(DriftMode::Resample, &clocks, |_| 0.0);
-        let s = &r.stats;
-        assert_eq!(s.ring_underruns + s.ring_overflows + s.reprimes + s.resyncs, 0, "{skew}: {s:?}");
-        let per_s = RATE as usize / clocks.out_frames;
-        let range = |from: usize, to: usize| {
-            let w = &r.latency_frames[from * per_s..to * per_s];
-            (w.iter().copied().fold(f64::MAX, f64::min), w.iter().copied().fold(f64::MIN, f64::max))
-        };
-        let (lo_all, hi_all) = range(1, 60);
-        let (lo, hi) = range(5, 60);
-        eprintln!(
-            "{:+.0} ppm: latency (frames) 1-60 s {lo_all:.1}..{hi_all:.1}, 5-60 s {lo:.1}..{hi:.1}; {:.1} ppm at the end",
-            (skew - 1.0) * 1e6,
-            s.drift_ppm
-        );
-        // Settled: within the callbacks' own sawtooth (a period) plus a few frames of loop error.
-        assert!(hi - lo < 64.0 + 8.0, "{skew}: {lo:.1}..{hi:.1}");
-        // Whole run: the start-up transient is bounded too.
-        assert!(hi_all - lo_all < 64.0 + 48.0, "{skew}: {lo_all:.1}..{hi_all:.1}");
-        let want = (skew - 1.0) * 1e6;
-        assert!((s.drift_ppm - want).abs() < 30.0, "{skew}: {} ppm, want {want}", s.drift_ppm);
-        let tail = &r.ppm[50 * per_s..];
-        let mean = tail.iter().sum::<f64>() / tail.len() as f64;
-        assert!((mean - want).abs() < 5.0, "{skew}: {mean:.1} ppm on average over the last 10 s, want {want}");
+    for (in_frames, out_frames) in [(64, 64), (1024, 2048)] {
+        for skew in [1.0 + 1000e-6, 1.0 - 1000e-6] {
+            let clocks = Clocks { in_frames, out_frames, ..Clocks::new(skew, 60.0) };
+            let r = run(DriftMode::Resample, &clocks, |_| 0.0);
+            let s = &r.stats;
+            let case = format!("{:+.0} ppm, periods {in_frames}/{out_frames}", (skew - 1.0) * 1e6);
+            assert_eq!(s.ring_underruns + s.ring_overflows + s.reprimes + s.resyncs, 0, "{case}: {s:?}");
+            let per_s = f64::from(RATE) / out_frames as f64;
+            let at = |seconds: f64| (seconds * per_s) as usize;
+            let range = |from: f64, to: f64| {
+                let w = &r.latency_frames[at(from)..at(to)];
+                (w.iter().copied().fold(f64::MAX, f64::min), w.iter().copied().fold(f64::MIN, f64::max))
+            };
+            let (lo_all, hi_all) = range(1.0, 60.0);
+            let (lo, hi) = range(5.0, 60.0);
+            let tail = &r.ppm[at(50.0)..];
+            let mean = tail.iter().sum::<f64>() / tail.len() as f64;
+            eprintln!(
+                "{case}: level (frames) 1-60 s {lo_all:.1}..{hi_all:.1}, 5-60 s {lo:.1}..{hi:.1}; mean correction \
+                 over the last 10 s {mean:.1} ppm"
+            );
+            // Settled: the callbacks' jitter (100 us is 4.8 frames) plus a little loop error.
+            assert!(hi - lo < 24.0, "{case}: {lo:.1}..{hi:.1}");
+            // The whole run, start-up transient included.
+            assert!(hi_all - lo_all < 48.0, "{case}: {lo_all:.1}..{hi_all:.1}");
+            let want = (skew - 1.0) * 1e6;
+            assert!((mean - want).abs() < 5.0, "{case}: {mean:.1} ppm on average over the last 10 s, want {want}");
+        }
     }
 }
 
