@@ -1,6 +1,8 @@
 //! The `partita` command: render files offline, plan a partition for a latency budget, monitor live,
 //! measure rooms (sweep, deconvolve, analyze), benchmark. Each subcommand lives in its own module and stays
 //! thin over the library crates.
+// serde_json's json! macro recurses once per key: monitor's summary has more keys than the default 128 allow.
+#![recursion_limit = "256"]
 
 use std::process::ExitCode;
 

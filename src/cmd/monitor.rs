@@ -110,6 +110,11 @@ pub struct MonitorArgs {
     /// Fade-in on start, ms.
     #[arg(long, value_name = "MS", default_value_t = 250.0)]
     fade_in_ms: f64,
+    /// Clock-drift correction between separate input and output devices (not JACK): `resample`
+    /// (adaptive resampling, click-free, adds 0.33 ms once engaged) or `slip` (drops or repeats a
+    /// frame: a click each time).
+    #[arg(long, value_name = "MODE", default_value = "resample", value_parser = ["resample", "slip"])]
+    drift: String,
     /// Run the engine in the output callback instead of the input callback.
     #[arg(long)]
     engine_in_output: bool,
@@ -360,6 +365,7 @@ pub fn run(args: MonitorArgs) -> CmdResult {
                 ("--output", args.output != DeviceSelector::Default),
                 ("--engine-in-output", args.engine_in_output),
                 ("--ring-margin", args.ring_margin.is_some()),
+                ("--drift", args.drift != "resample"),
             ] {
                 if given {
                     return Err(format!(
@@ -486,6 +492,14 @@ pub fn run(args: MonitorArgs) -> CmdResult {
             margin_frames: args.ring_margin,
             safety,
             realtime: args.realtime,
+            drift: partita_device::DriftOptions {
+                mode: if args.drift == "slip" {
+                    partita_device::DriftMode::FrameSlip
+                } else {
+                    partita_device::DriftMode::Resample
+                },
+                ..partita_device::DriftOptions::default()
+            },
             ..StreamOptions::default()
         };
         let stream = devices.start(built.engine, &stream_options)?;
@@ -705,12 +719,8 @@ fn print_summary(s: &Stats, route: &Route, fault: Option<&str>) {
     );
     if route.jack_latency.is_none() {
         eprintln!(
-            "  drift        {} corrections ({} slipped, {} repeated); {} re-primes, {} resyncs",
-            s.drift_corrections(),
-            s.drift_slips,
-            s.drift_repeats,
-            s.reprimes,
-            s.resyncs
+            "  drift        resampling at {:+.1} ppm (adds {:.2} ms); {} slipped, {} repeated; {} re-primes, {} resyncs",
+            s.drift_ppm, s.resampler_latency_ms, s.drift_slips, s.drift_repeats, s.reprimes, s.resyncs
         );
     }
     eprintln!(
@@ -752,6 +762,8 @@ fn summary_json(s: &Stats, route: &Route, plan: &partita_core::Plan, fault: Opti
         "drift_corrections": s.drift_corrections(),
         "drift_slips": s.drift_slips,
         "drift_repeats": s.drift_repeats,
+        "drift_ppm": s.drift_ppm,
+        "resampler_latency_ms": s.resampler_latency_ms,
         "reprimes": s.reprimes,
         "resyncs": s.resyncs,
         "nonfinite_samples": s.nonfinite_samples(),

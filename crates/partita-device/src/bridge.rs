@@ -9,7 +9,8 @@
 //!
 //! Per callback, with no allocation, lock, I/O or wait: convert the device format to f32, map device
 //! channels to engine channels, replace non-finite input by 0 (counted), push or pop whole frames,
-//! prime the ring, correct drift ([`crate::drift`]), run the engine in chunks of at most its
+//! prime the ring, correct drift ([`crate::drift`]: resample through the rate controller and the
+//! fractional reader, or slip and repeat frames), run the engine in chunks of at most its
 //! `max_host_frames`, apply the safety stage, meter, convert back, and time the callback (wall
 //! clock against its period for the overrun count, thread CPU clock for the load).
 
@@ -23,7 +24,7 @@ use ringbuf::{HeapCons, HeapProd, HeapRb};
 
 use crate::channels::ChannelMap;
 use crate::convert::{with_samples, DeviceSample};
-use crate::drift::{Correction, DriftOptions, DriftTracker};
+use crate::drift::{Correction, DriftMode, DriftOptions, DriftTracker, RateController, RateReader, HALF_TAPS};
 use crate::error::DeviceError;
 use crate::safety::{SafetyOptions, SafetyStage};
 use crate::stats::{BridgeCells, Fault, Peaks, Stats};
@@ -232,6 +233,16 @@ pub struct CaptureSide {
     chunk: usize,
 }
 
+/// The click-free drift corrector of [`DriftMode::Resample`]: the rate controller and the fractional
+/// reader between the ring and the rest of the playback side.
+#[derive(Debug)]
+struct Resampling {
+    control: RateController,
+    reader: RateReader,
+    /// The correction reached at the end of the last callback (the next one ramps on from it).
+    u: f64,
+}
+
 /// The output stream's per-callback work: the ring pop with priming and drift correction, the engine
 /// (on [`EngineSide::Playback`]), channel mapping and conversion. See the crate docs.
 pub struct PlaybackSide {
@@ -247,6 +258,7 @@ pub struct PlaybackSide {
     chunk: usize,
     margin: usize,
     drift: DriftTracker,
+    resampling: Option<Box<Resampling>>,
     primed: bool,
     started: bool,
     last_frames: usize,
@@ -370,6 +382,13 @@ impl Bridge {
             chunk,
             margin: options.margin_frames,
             drift: DriftTracker::new(options.sample_rate_hz, options.drift),
+            resampling: (options.drift.enabled && options.drift.mode == DriftMode::Resample).then(|| {
+                Box::new(Resampling {
+                    control: RateController::new(options.sample_rate_hz, options.drift, HALF_TAPS),
+                    reader: RateReader::new(width, chunk),
+                    u: 0.0,
+                })
+            }),
             primed: false,
             started: false,
             last_frames: 0,
@@ -477,19 +496,28 @@ impl PlaybackSide {
             self.last_input_frames = n_in;
             self.disturbed = 3;
             self.drift.reset();
+            if let Some(rs) = self.resampling.as_deref_mut() {
+                rs.control.reset();
+            }
         } else {
             self.disturbed = self.disturbed.saturating_sub(1);
         }
         let fill = self.cons.occupied_len() / w;
         let target = n_in.max(frames) + self.margin;
+        // Once engaged, the resampler holds its look-ahead out of the ring: prime with it included.
+        let lookahead = self.resampling.as_ref().map_or(0, |rs| rs.reader.lookahead());
         if !self.primed {
-            if n_in > 0 && fill >= target {
+            if n_in > 0 && fill >= target + lookahead {
                 self.primed = true;
                 if self.started {
                     shared.reprimes.fetch_add(1, Relaxed);
                 }
                 self.started = true;
                 self.drift.reset();
+                if let Some(rs) = self.resampling.as_deref_mut() {
+                    rs.control.restart();
+                    rs.reader.restart();
+                }
                 self.min_fill = usize::MAX;
                 self.window_frames = 0;
             } else {
@@ -498,6 +526,27 @@ impl PlaybackSide {
                 return;
             }
         }
+        // The ring's level independent of the two callbacks' phase: add what the input has gathered
+        // since its last callback.
+        let since_in_ns = time.now_ns.saturating_sub(t_in);
+        let gathered = (since_in_ns as f64 * 1e-9 * f64::from(shared.rate_hz)).min(n_in as f64);
+        let input = InputClock { n_in, since_in_ns, gathered, target };
+        if self.resampling.is_some() {
+            self.play_resampled(data, time, fill, input);
+        } else {
+            self.play_slipping(data, time, fill, input);
+        }
+        timer.finish(&self.shared, frames);
+    }
+
+    /// The end of [`play`](Self::play) in [`DriftMode::FrameSlip`], or with correction off: whole frames
+    /// from the ring, one slipped or repeated when the tracker says so.
+    fn play_slipping<T: DeviceSample>(&mut self, data: &mut [T], time: CallbackTime, fill: usize, input: InputClock) {
+        let shared = &*self.shared;
+        let c = self.device_channels;
+        let frames = data.len() / c;
+        let w = self.width;
+        let InputClock { n_in, since_in_ns, gathered, target } = input;
         if fill < frames {
             // Ran dry: play silence and build the level up again rather than play a partial buffer.
             if self.disturbed == 0 {
@@ -505,14 +554,8 @@ impl PlaybackSide {
             }
             self.primed = false;
             fill_silence(data);
-            timer.finish(shared, frames);
             return;
         }
-        // The ring's level independent of the two callbacks' phase: add what the input has gathered
-        // since its last callback.
-        let rate = f64::from(shared.rate_hz);
-        let since_in_ns = time.now_ns.saturating_sub(t_in);
-        let gathered = (since_in_ns as f64 * 1e-9 * rate).min(n_in as f64);
         let mut correction = self.drift.observe(fill as f64 + gathered, frames);
         // Excess buffering (after a glitch, or when the period shrank) shows as a floor under the level:
         // when the lowest fill over a quarter second stays a whole period above the target, drop the
@@ -537,12 +580,8 @@ impl PlaybackSide {
         }
         // Latency of the first frame played now: playback delay + time since the input callback +
         // capture delay + frames queued ahead of that callback's + the engine's latency.
-        let queued = fill as i64 - n_in as i64 - i64::from(correction == Correction::Slip);
-        let latency_ns = time.device_delay_ns as f64
-            + since_in_ns as f64
-            + shared.capture_delay_ns.load(Relaxed) as f64
-            + (queued as f64 + shared.engine_latency_frames as f64) * 1e9 / rate;
-        shared.record_latency(latency_ns.max(0.0) as u64);
+        let queued = fill as f64 - n_in as f64 - f64::from(u8::from(correction == Correction::Slip));
+        record_latency(shared, time, since_in_ns, queued);
 
         match correction {
             Correction::Slip => {
@@ -572,31 +611,138 @@ impl PlaybackSide {
             buf[start + got..].fill(0.0);
             self.last_frame.copy_from_slice(&buf[(len - 1) * w..]);
             let out = &mut data[done * c..(done + len) * c];
-            match &mut self.stage {
-                Some(stage) => {
-                    for (k, plane) in self.planar.iter_mut().enumerate() {
-                        for i in 0..len {
-                            plane[i] = buf[i * w + k];
-                        }
-                    }
-                    stage.run(&self.planar, len, shared);
-                    write_device(out, c, &self.map, len, |o, i| stage.outs[o][i]);
-                }
-                None => {
-                    let buf = &self.frames_buf;
-                    let peak = buf[..len * w].iter().fold(0.0f32, |p, v| p.max(v.abs()));
-                    BridgeCells::raise_peak(&shared.out_peak, peak);
-                    write_device(out, c, &self.map, len, |o, i| buf[i * w + o]);
-                }
-            }
+            emit(&self.frames_buf[..len * w], w, &mut self.planar, &mut self.stage, out, c, &self.map, shared);
             done += len;
         }
-        timer.finish(shared, frames);
+    }
+
+    /// The end of [`play`](Self::play) in [`DriftMode::Resample`]: the ring read at `1 + u` frames per
+    /// output frame through the fractional reader, `u` ramped across the callback to what the rate
+    /// controller asks for now.
+    fn play_resampled<T: DeviceSample>(&mut self, data: &mut [T], time: CallbackTime, fill: usize, input: InputClock) {
+        let shared = &*self.shared;
+        let c = self.device_channels;
+        let frames = data.len() / c;
+        let w = self.width;
+        let InputClock { n_in, since_in_ns, gathered, target } = input;
+        let Some(rs) = self.resampling.as_deref_mut() else {
+            return;
+        };
+        // The level counts the frames the reader holds beyond its (fractional) output position, so it
+        // moves smoothly with the reading rate rather than in steps of whole frames taken.
+        let pending = rs.reader.pending();
+        let u_end = rs.control.observe(fill as f64 + pending + gathered, frames);
+        if rs.control.engaged() && rs.reader.lookahead() == 0 {
+            rs.reader.engage();
+        }
+        let u0 = rs.u;
+        let du = (u_end - u0) / frames as f64;
+        let need = rs.reader.need(0, frames, u0, du);
+        if fill < need {
+            // Ran dry: play silence and build the level up again rather than play a partial buffer.
+            if self.disturbed == 0 {
+                shared.ring_underruns.fetch_add(1, Relaxed);
+            }
+            self.primed = false;
+            fill_silence(data);
+            return;
+        }
+        // Excess buffering: as in frame-slip mode, on the ring's own fill.
+        self.min_fill = self.min_fill.min(fill);
+        self.window_frames += frames;
+        let mut fill = fill;
+        if self.window_frames * 4 >= shared.rate_hz as usize {
+            let slack = n_in.max(frames);
+            if self.min_fill >= target + slack && self.disturbed == 0 {
+                let excess = (self.min_fill - target).min(fill - need);
+                self.cons.skip(excess * w);
+                fill -= excess;
+                shared.resyncs.fetch_add(1, Relaxed);
+                rs.control.reset();
+            }
+            self.min_fill = usize::MAX;
+            self.window_frames = 0;
+        }
+        // Latency of the first frame played now, as in frame-slip mode, with the frames the reader
+        // holds ahead of its output position (its look-ahead: the resampler's delay) among the queued.
+        record_latency(shared, time, since_in_ns, fill as f64 + pending - n_in as f64);
+        shared.drift_ppm_bits.store((u_end * 1e6).to_bits(), Relaxed);
+        shared.resampler_frames.store(rs.reader.lookahead() as u64, Relaxed);
+
+        let mut done = 0;
+        while done < frames {
+            let len = (frames - done).min(self.chunk);
+            let take = rs.reader.need(done, len, u0, du);
+            rs.reader.pull(&mut self.cons, take);
+            rs.reader.render(&mut self.frames_buf[..len * w], done, u0, du);
+            let out = &mut data[done * c..(done + len) * c];
+            emit(&self.frames_buf[..len * w], w, &mut self.planar, &mut self.stage, out, c, &self.map, shared);
+            done += len;
+        }
+        rs.u = u_end;
     }
 
     /// [`play`](Self::play) for cpal's format-tagged buffer.
     pub fn play_data(&mut self, data: &mut cpal::Data, time: CallbackTime) {
         with_samples!(data, as_slice_mut, |s| self.play(s, time));
+    }
+}
+
+/// What the playback side knows of the input side when it plays.
+#[derive(Debug, Clone, Copy)]
+struct InputClock {
+    /// Frames of the latest input callback.
+    n_in: usize,
+    /// Time since it, ns.
+    since_in_ns: u64,
+    /// Frames the input has gathered since it (elapsed time x rate, at most `n_in`).
+    gathered: f64,
+    /// The ring's primed level: the larger period plus the margin.
+    target: usize,
+}
+
+/// Records the latency of the first frame played now: playback delay + time since the input
+/// callback + capture delay + `queued` frames (ahead of that callback's first) + the engine's latency.
+#[inline]
+fn record_latency(shared: &BridgeCells, time: CallbackTime, since_in_ns: u64, queued: f64) {
+    let rate = f64::from(shared.rate_hz);
+    let latency_ns = time.device_delay_ns as f64
+        + since_in_ns as f64
+        + shared.capture_delay_ns.load(Relaxed) as f64
+        + (queued + shared.engine_latency_frames as f64) * 1e9 / rate;
+    shared.record_latency(latency_ns.max(0.0) as u64);
+}
+
+/// The playback side's work on a chunk of `len` frames from the ring (`buf`, interleaved, `w` wide):
+/// the engine and safety stage when this side runs them, the meter otherwise, and the device buffer.
+#[allow(clippy::too_many_arguments)]
+#[inline]
+fn emit<T: DeviceSample>(
+    buf: &[f32],
+    w: usize,
+    planar: &mut [Vec<f32>],
+    stage: &mut Option<Box<Stage>>,
+    out: &mut [T],
+    c: usize,
+    map: &[Option<usize>],
+    shared: &BridgeCells,
+) {
+    let len = buf.len() / w;
+    match stage {
+        Some(stage) => {
+            for (k, plane) in planar.iter_mut().enumerate() {
+                for i in 0..len {
+                    plane[i] = buf[i * w + k];
+                }
+            }
+            stage.run(planar, len, shared);
+            write_device(out, c, map, len, |o, i| stage.outs[o][i]);
+        }
+        None => {
+            let peak = buf.iter().fold(0.0f32, |p, v| p.max(v.abs()));
+            BridgeCells::raise_peak(&shared.out_peak, peak);
+            write_device(out, c, map, len, |o, i| buf[i * w + o]);
+        }
     }
 }
 

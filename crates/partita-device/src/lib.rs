@@ -22,8 +22,13 @@
 //!   [`PlaybackSide::play`]) that never allocate, lock or wait, so tests drive them without a device.
 //! - Any callback frame count works (split into chunks of the engine's `max_host_frames`); every PCM
 //!   format converts to and from f32 ([`convert`]); device channels map to engine channels
-//!   ([`ChannelMap`]); clock drift between separate devices is corrected by slipping or repeating a
-//!   frame ([`drift`]).
+//!   ([`ChannelMap`]); clock drift between separate devices is corrected by adaptive resampling ([`drift`]): the
+//!   playback side reads the ring through a 32-tap windowed-sinc interpolator at a rate a PI loop on
+//!   the ring level sets, so no frame is ever dropped or repeated (a 1 kHz tone at 100 ppm keeps every
+//!   spur over 100 dB down). The resampler engages only once the level drifts, so devices on one clock
+//!   are untouched. Once engaged it adds 16 frames (0.33 ms at 48 kHz), included in the reported
+//!   latency (`Stats::resampler_latency_ms`; the correction is `Stats::drift_ppm`).
+//!   `DriftMode::FrameSlip` keeps the old slip/repeat.
 //! - Faults: error callbacks only set atomics. Host-reported xruns, our own overruns (ring underruns
 //!   and overflows, callbacks slower than their period), drift corrections, late worker results,
 //!   non-finite samples and mutes are counted separately ([`Stats`]); a lost device or a stopped
@@ -91,7 +96,7 @@ pub use bridge::{
     Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, PlaybackSide, MAX_ENGINE_CHANNELS,
 };
 pub use channels::ChannelMap;
-pub use drift::{Correction, DriftOptions, DriftTracker};
+pub use drift::{Correction, DriftMode, DriftOptions, DriftTracker, RateController};
 #[cfg(feature = "jack")]
 pub use duplex::{DuplexInfo, DuplexLatency, DuplexOptions, DuplexStream, JackDuplex, RebuildFn};
 pub use error::{DeviceError, Direction};

@@ -101,10 +101,17 @@ pub struct Stats {
     /// preempted (a server or callback thread without real-time priority on a busy machine). Not one of
     /// our overruns; the cure is real-time scheduling (a real-time server, or `--realtime`).
     pub preempted_callbacks: u64,
-    /// Frames dropped to correct drift (input faster than output).
+    /// Frames dropped to correct drift (input faster than output; [`DriftMode::FrameSlip`](crate::drift::DriftMode) only).
     pub drift_slips: u64,
-    /// Frames repeated to correct drift (input slower than output).
+    /// Frames repeated to correct drift (input slower than output; [`DriftMode::FrameSlip`](crate::drift::DriftMode) only).
     pub drift_repeats: u64,
+    /// The resampler's rate correction in the latest output callback, ppm: positive when the input
+    /// runs fast (the ring is read faster than the output plays). 0 until the resampler engages, and
+    /// always in [`DriftMode::FrameSlip`](crate::drift::DriftMode).
+    pub drift_ppm: f64,
+    /// The resampler's share of the latency (its interpolator's look-ahead; 0 until it engages), ms.
+    /// Included in the latency figures.
+    pub resampler_latency_ms: f64,
     /// Excess buffering dropped at once after a disturbance (e.g. the period shrank).
     pub resyncs: u64,
     /// Times the ring was primed again after a period change or an underrun (the first start not counted).
@@ -122,7 +129,7 @@ pub struct Stats {
     /// Why the output is muted now, if it is.
     pub muted: Option<MuteReason>,
     /// Input-to-output latency, mean over the run (device capture and playback delays from cpal's
-    /// timestamps, time in the ring, and the engine's latency), ms.
+    /// timestamps, time in the ring and the resampler, and the engine's latency), ms.
     pub latency_ms: f64,
     /// Smallest latency measured, ms.
     pub latency_min_ms: f64,
@@ -194,6 +201,10 @@ pub(crate) struct BridgeCells {
     pub preempted_callbacks: AtomicU64,
     pub drift_slips: AtomicU64,
     pub drift_repeats: AtomicU64,
+    /// The resampler's correction in ppm, as f64 bits.
+    pub drift_ppm_bits: AtomicU64,
+    /// Frames the resampler holds beyond the output position (its delay).
+    pub resampler_frames: AtomicU64,
     pub resyncs: AtomicU64,
     pub reprimes: AtomicU64,
     pub nonfinite_inputs: AtomicU64,
@@ -245,6 +256,8 @@ impl BridgeCells {
             preempted_callbacks: z(),
             drift_slips: z(),
             drift_repeats: z(),
+            drift_ppm_bits: z(),
+            resampler_frames: z(),
             resyncs: z(),
             reprimes: z(),
             nonfinite_inputs: z(),
@@ -372,6 +385,8 @@ impl BridgeCells {
             preempted_callbacks: self.preempted_callbacks.load(Relaxed),
             drift_slips: self.drift_slips.load(Relaxed),
             drift_repeats: self.drift_repeats.load(Relaxed),
+            drift_ppm: f64::from_bits(self.drift_ppm_bits.load(Relaxed)),
+            resampler_latency_ms: self.resampler_frames.load(Relaxed) as f64 * 1000.0 / rate,
             resyncs: self.resyncs.load(Relaxed),
             reprimes: self.reprimes.load(Relaxed),
             late_results,

@@ -1,9 +1,11 @@
 //! The bridge's per-callback work, driven offline (no device): the output equals the offline
 //! convolution through any callback sizes and formats, drift between skewed clocks is corrected
-//! without overflowing or running dry, stalls and safety mutes are counted.
+//! without overflowing or running dry (both drift modes; `tests/drift.rs` has the rest of drift),
+//! stalls and safety mutes are counted.
 
 use partita_core::synth::{decaying_noise, Noise};
 use partita_core::{naive, Command, Engine, EngineOptions, ImpulseResponse, Mix, Plan, Routing};
+use partita_device::drift::DriftMode;
 use partita_device::{Bridge, BridgeOptions, CallbackTime, DriftOptions, EngineSide, MuteReason, SafetyOptions};
 use partita_testkit::ErrorBound;
 
@@ -90,16 +92,20 @@ fn integer_formats_and_channel_maps() {
 }
 
 /// Producer and consumer at rates skewed by 0.1% (both ways), with callback jitter and different
-/// periods: corrections happen at about the drift rate, the ring neither overflows nor runs dry.
+/// periods: frame slips happen at about the drift rate, resampling settles on the rate difference
+/// without a slip, and either way the ring neither overflows nor runs dry.
 #[test]
 fn drift_between_skewed_clocks_is_corrected() {
-    for (skew, in_frames, out_frames) in [(1.001, 64usize, 64usize), (0.999, 64, 256), (1.001, 256, 64)] {
+    let cases = [(1.001, 64usize, 64usize), (0.999, 64, 256), (1.001, 256, 64)];
+    for ((skew, in_frames, out_frames), mode) in
+        cases.into_iter().flat_map(|c| [(c, DriftMode::FrameSlip), (c, DriftMode::Resample)])
+    {
         let e = engine(&[vec![1.0]], Routing::Mono, 64);
         let mut opts = options(EngineSide::Capture, 1, 1);
         // The margin separate devices need: the smaller period (the level's sawtooth) plus the
         // drift controller's deadband and smoothing lag.
         opts.margin_frames = in_frames.min(out_frames) + 32;
-        opts.drift = DriftOptions::default();
+        opts.drift = DriftOptions { mode, ..DriftOptions::default() };
         let Bridge { mut capture, mut playback, handle } = Bridge::new(e, &opts).unwrap();
         let seconds = 20.0;
         let in_period = in_frames as f64 / (f64::from(RATE) * skew);
@@ -108,6 +114,8 @@ fn drift_between_skewed_clocks_is_corrected() {
         let (mut t_in, mut t_out) = (0.0f64, 0.3e-3);
         let input = vec![0.25f32; in_frames];
         let mut out = vec![0.0f32; out_frames];
+        // The resampler's correction over the last 5 s.
+        let (mut ppm_sum, mut ppm_count) = (0.0, 0);
         while t_in.min(t_out) < seconds {
             // Up to 100 us of scheduling jitter on every wake-up.
             let j = 100e-6 * jitter.unit();
@@ -117,17 +125,30 @@ fn drift_between_skewed_clocks_is_corrected() {
             } else {
                 playback.play(&mut out, CallbackTime { now_ns: ((t_out + j) * 1e9) as u64, device_delay_ns: 0 });
                 t_out += out_period;
+                if t_out > seconds - 5.0 {
+                    ppm_sum += handle.stats().drift_ppm;
+                    ppm_count += 1;
+                }
             }
         }
         let s = handle.stats();
-        let drift_frames = (skew - 1.0).abs() * f64::from(RATE) * seconds;
-        let (wanted, unwanted) =
-            if skew > 1.0 { (s.drift_slips, s.drift_repeats) } else { (s.drift_repeats, s.drift_slips) };
-        assert!(
-            wanted as f64 > 0.8 * drift_frames && (wanted as f64) < 1.05 * drift_frames,
-            "skew {skew}, periods {in_frames}/{out_frames}: {wanted} corrections for {drift_frames} frames of drift"
-        );
-        assert_eq!(unwanted, 0, "skew {skew}: corrections the wrong way");
+        if mode == DriftMode::FrameSlip {
+            let drift_frames = (skew - 1.0).abs() * f64::from(RATE) * seconds;
+            let (wanted, unwanted) =
+                if skew > 1.0 { (s.drift_slips, s.drift_repeats) } else { (s.drift_repeats, s.drift_slips) };
+            assert!(
+                wanted as f64 > 0.8 * drift_frames && (wanted as f64) < 1.05 * drift_frames,
+                "skew {skew}, periods {in_frames}/{out_frames}: {wanted} corrections for {drift_frames} frames of drift"
+            );
+            assert_eq!(unwanted, 0, "skew {skew}: corrections the wrong way");
+        } else {
+            assert_eq!(s.drift_corrections(), 0, "skew {skew}: resampling slipped");
+            let (want, mean) = ((skew - 1.0) * 1e6, ppm_sum / f64::from(ppm_count));
+            assert!(
+                (mean - want).abs() < 5.0,
+                "skew {skew}, periods {in_frames}/{out_frames}: {mean:.1} ppm on average for {want}"
+            );
+        }
         assert_eq!(s.ring_overflows, 0, "skew {skew}: {s:?}");
         assert_eq!(s.ring_underruns, 0, "skew {skew}: {s:?}");
         assert_eq!(s.reprimes, 0, "skew {skew}: {s:?}");
@@ -157,6 +178,8 @@ fn one_clock_needs_no_correction() {
     }
     let s = handle.stats();
     assert_eq!((s.drift_corrections(), s.ring_underruns + s.ring_overflows, s.resyncs), (0, 0, 0), "{s:?}");
+    // The resampler (the default) never engaged: no rate change, no added delay.
+    assert_eq!((s.drift_ppm, s.resampler_latency_ms), (0.0, 0.0), "{s:?}");
 }
 
 /// The counters can fail: a callback stalled for three periods is counted as an overrun.
