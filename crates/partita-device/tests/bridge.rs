@@ -349,3 +349,23 @@ fn unmute_uses_the_engines_spread_reset() {
     assert!((last[255] - 0.1).abs() < 1e-6, "the sound is back: {}", last[255]);
     assert_eq!(handle.stats().muted, None);
 }
+
+/// A device removed mid-run: cpal reports `DeviceNotAvailable` through the error callback, which the
+/// bridge turns into a fault the control side sees (and `monitor` ends the run with, naming it). Xruns
+/// are counted as the host's, apart from our overruns.
+#[test]
+fn device_removal_becomes_a_named_fault_and_xruns_stay_the_hosts() {
+    let e = engine(&[vec![1.0]], Routing::Mono, 32);
+    let Bridge { handle, .. } = Bridge::new(e, &options(EngineSide::Capture, 1, 1)).unwrap();
+    assert_eq!(handle.fault(), None);
+    handle.note_error(cpal::ErrorKind::Xrun, partita_device::Direction::Output);
+    assert_eq!((handle.stats().host_xruns, handle.stats().overruns()), (1, 0));
+    assert_eq!(handle.fault(), None, "an xrun is not a fault");
+    handle.note_error(cpal::ErrorKind::DeviceNotAvailable, partita_device::Direction::Input);
+    let fault = handle.fault().expect("a fault");
+    assert_eq!(fault, partita_device::Fault::DeviceLost(partita_device::Direction::Input));
+    assert!(fault.to_string().contains("input device is no longer available"), "{fault}");
+    // The first fault is kept: a later one (the output side failing too) does not overwrite it.
+    handle.note_error(cpal::ErrorKind::DeviceNotAvailable, partita_device::Direction::Output);
+    assert_eq!(handle.fault(), Some(fault));
+}
