@@ -197,6 +197,44 @@ fn monitor_exits_nonzero_soon_after_the_server_dies() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
+/// `--reconnect`: the server is killed mid-run and started again under the same name; monitor says so,
+/// reconnects, runs to `--seconds` and exits 0 with the fault survived named in the summary.
+#[test]
+fn monitor_reconnects_after_the_server_comes_back() {
+    let _serial = serial();
+    let Some(mut server) = jack_or_skip("monitor_reconnects_after_the_server_comes_back", 256) else { return };
+    let dir = scratch("reconnect");
+    let ir = write_ir(&dir, 0.5);
+    let json = dir.join("summary.json");
+    let child = partita(&server.name)
+        .args(["monitor", "--host", "jack", "--reconnect", "--seconds", "9", "--ir"])
+        .arg(&ir)
+        .arg("--summary-json")
+        .arg(&json)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    std::thread::sleep(Duration::from_millis(2500));
+    let name = server.name.clone();
+    server.kill_now();
+    std::thread::sleep(Duration::from_millis(1500));
+    let again = partita_testkit::jack_server::JackServer::start_named(&name, 256).expect("the server comes back");
+    let out = child.wait_with_output().unwrap();
+    let (_, err) = text(&out);
+    eprintln!("{err}");
+    assert!(out.status.success(), "exit {:?}", out.status);
+    assert!(err.contains("--reconnect: retrying every second"), "{err}");
+    assert!(err.contains("reconnected"), "{err}");
+    let v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(v["reconnects"], 1, "{v}");
+    assert!(v["faults_survived"][0].as_str().is_some_and(|f| f.contains("JACK server stopped")), "{v}");
+    assert!(v["fault"].is_null(), "{v}");
+    drop(again);
+    drop(server);
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
 /// Without a server the command fails with one clear line saying so.
 #[test]
 fn monitor_without_a_server_says_so() {

@@ -121,6 +121,10 @@ pub struct MonitorArgs {
     /// Frames kept in the bridge's ring beyond one period [default: one period on JACK, period + 32 otherwise].
     #[arg(long, value_name = "N")]
     ring_margin: Option<usize>,
+    /// When the JACK server or the device goes away, retry every second until it is back (or Ctrl-C,
+    /// or --seconds) instead of ending with an error.
+    #[arg(long)]
+    reconnect: bool,
     /// Stop after this many seconds (cleanly, exit 0) [default: until Ctrl-C].
     #[arg(long, value_name = "S")]
     seconds: Option<f64>,
@@ -241,6 +245,8 @@ const MAX_HOST_FRAMES: usize = 4096;
 
 /// The running stream: the duplex JACK client, or the cpal streams and their ring for other hosts.
 enum Live {
+    /// Between a fault and a reconnection.
+    Closed,
     Bridged(partita_device::LiveStream),
     #[cfg(feature = "jack")]
     Duplex(partita_device::DuplexStream),
@@ -249,6 +255,7 @@ enum Live {
 impl Live {
     fn poll_fault(&mut self) -> Option<Fault> {
         match self {
+            Self::Closed => None,
             Self::Bridged(l) => l.poll_fault(),
             #[cfg(feature = "jack")]
             Self::Duplex(d) => d.poll(),
@@ -257,6 +264,7 @@ impl Live {
 
     fn unmute(&self) {
         match self {
+            Self::Closed => {}
             Self::Bridged(l) => l.handle().unmute(),
             #[cfg(feature = "jack")]
             Self::Duplex(d) => d.unmute(),
@@ -265,6 +273,7 @@ impl Live {
 
     fn take_peaks(&self) -> partita_device::Peaks {
         match self {
+            Self::Closed => partita_device::Peaks::default(),
             Self::Bridged(l) => l.handle().take_peaks(),
             #[cfg(feature = "jack")]
             Self::Duplex(d) => d.take_peaks(),
@@ -273,6 +282,7 @@ impl Live {
 
     fn stats(&self) -> Stats {
         match self {
+            Self::Closed => Stats::default(),
             Self::Bridged(l) => l.stats(),
             #[cfg(feature = "jack")]
             Self::Duplex(d) => d.stats(),
@@ -281,6 +291,7 @@ impl Live {
 
     fn stop(self) -> Stats {
         match self {
+            Self::Closed => Stats::default(),
             Self::Bridged(l) => l.stop(),
             #[cfg(feature = "jack")]
             Self::Duplex(d) => d.stop(),
@@ -351,192 +362,27 @@ pub fn run(args: MonitorArgs) -> CmdResult {
         // The stream starts at its wet/dry settings, without a ramp; the engine's own mixer is the only one.
         mix: Mix { wet: args.wet as f32, dry: args.dry as f32, ..Mix::default() },
     };
-    let jack = args.host.as_deref().is_some_and(|h| h.eq_ignore_ascii_case("jack"));
     // New engines built by the duplex client after a rate or period change send their control handle
     // (and the other IR, prepared for them) here.
     let (rebuilt_tx, rebuilt_rx) = std::sync::mpsc::channel::<(Control, Option<PreparedIr>)>();
     let swap_fade_ms = args.swap_fade_ms;
 
-    let (built, mut live, route) = if jack {
-        #[cfg(feature = "jack")]
-        {
-            for (flag, given) in [
-                ("--input", args.input != DeviceSelector::Default),
-                ("--output", args.output != DeviceSelector::Default),
-                ("--engine-in-output", args.engine_in_output),
-                ("--ring-margin", args.ring_margin.is_some()),
-                ("--drift", args.drift != "resample"),
-            ] {
-                if given {
-                    return Err(format!(
-                        "{flag} does not apply to JACK: partita runs as one JACK client with its own ports \
-                         (connect them with --input-channels/--output-channels, --no-connect, or a patchbay)"
-                    )
-                    .into());
-                }
-            }
-            let options = partita_device::DuplexOptions {
-                connect: !args.no_connect,
-                input_channels,
-                output_channels,
-                safety,
-                realtime: args.realtime,
-                ..partita_device::DuplexOptions::default()
-            };
-            let duplex = partita_device::JackDuplex::open(&options, inputs, outputs)?;
-            let (rate, period) = (duplex.sample_rate_hz(), duplex.period_frames());
-            if let Some(r) = args.rate.filter(|&r| r != rate) {
-                return Err(format!(
-                    "--rate {r}: the JACK server runs at {rate} Hz; restart it at {r} Hz or omit --rate"
-                )
-                .into());
-            }
-            if let Some(f) = args.device_frames.filter(|&f| f != period) {
-                return Err(format!(
-                    "--device-frames {f}: the JACK server runs at {period} frames per period; change it (jack_bufsize {f}) \
-                     or omit --device-frames"
-                )
-                .into());
-            }
-            let built = recipe.build(rate, period as usize, &mut |note| eprintln!("{note}"))?;
-            // A rebuild keeps the block and mode this plan chose (under --latency-ms too).
-            let again = Recipe {
-                block: built.plan.block_frames,
-                zero_latency: built.plan.zero_latency,
-                latency_ms: None,
-                ..recipe.clone()
-            };
-            let tx = rebuilt_tx.clone();
-            let rebuild: partita_device::RebuildFn = Box::new(move |rate, period| {
-                let b = again.build(rate, period, &mut |_| {}).map_err(|e| e.to_string())?;
-                let mut engine = b.engine;
-                let control = engine.control().ok_or("the engine's control handle was taken")?;
-                let spare = b.alt.as_ref().map(|a| control.prepare(a)).transpose().map_err(|e| e.to_string())?;
-                let _ = tx.send((control, spare));
-                Ok(engine)
-            });
-            let mut built = built;
-            let control = built.engine.control().ok_or("the engine's control handle was taken")?;
-            let spare = built.alt.as_ref().map(|a| control.prepare(a)).transpose()?;
-            let _ = rebuilt_tx.send((control, spare));
-            let stream = duplex.start(built.engine, rebuild)?;
-            let latency = stream.latency();
-            // The ports at the other end of our connections, inputs then outputs.
-            let mine = format!("{}:", stream.info().client);
-            let ports = |ours: &str| {
-                let list: Vec<&str> = stream
-                    .info()
-                    .connections
-                    .iter()
-                    .filter(|(a, b)| a.starts_with(&format!("{mine}{ours}")) || b.starts_with(&format!("{mine}{ours}")))
-                    .map(|(a, b)| if a.starts_with(&mine) { b.as_str() } else { a.as_str() })
-                    .collect();
-                if list.is_empty() {
-                    "(not connected)".to_string()
-                } else {
-                    list.join(", ")
-                }
-            };
-            let route = Route {
-                host: "JACK".into(),
-                rate,
-                input: ports("in_"),
-                output: ports("out_"),
-                engine_side: "duplex",
-                jack_latency: Some((latency.capture_frames, latency.engine_frames, latency.playback_frames)),
-            };
-            eprintln!(
-                "monitor: JACK at {rate} Hz, period {period} frames; client `{}` (one duplex client, no ring); in {} -> out {}",
-                stream.info().client,
-                route.input,
-                route.output
-            );
-            eprintln!(
-                "latency: {} frames ({:.3} ms) = capture {} + engine {} + playback {}, as JACK reports the connected ports",
-                latency.total_frames(),
-                f64::from(latency.total_frames()) * 1000.0 / f64::from(rate),
-                latency.capture_frames,
-                latency.engine_frames,
-                latency.playback_frames
-            );
-            (PlanNote { plan: built.plan, why: built.why }, Live::Duplex(stream), route)
-        }
-        #[cfg(not(feature = "jack"))]
-        {
-            return Err(partita_device::DeviceError::NoHost {
-                name: "jack".into(),
-                available: partita_device::host_names(),
-            }
-            .into());
-        }
-    } else {
-        let device_options = DeviceOptions {
-            host: args.host.clone(),
-            input: args.input.clone(),
-            output: args.output.clone(),
-            sample_rate_hz: args.rate,
-            device_frames: args.device_frames,
-            input_channels,
-            output_channels,
-        };
-        let devices = LiveDevices::open(&device_options, inputs, outputs)?;
-        let rate = devices.sample_rate_hz();
-        // When the host does not say, assume 1024 frames, a long ALSA period.
-        let host_period = devices.period_frames().map_or(UNKNOWN_PERIOD_FRAMES, |p| p as usize);
-        let mut built = recipe.build(rate, host_period, &mut |note| eprintln!("{note}"))?;
-        let control = built.engine.control().ok_or("the engine's control handle was taken")?;
-        let spare = built.alt.as_ref().map(|a| control.prepare(a)).transpose()?;
-        let _ = rebuilt_tx.send((control, spare));
-        let stream_options = StreamOptions {
-            side: if args.engine_in_output { EngineSide::Playback } else { EngineSide::Capture },
-            margin_frames: args.ring_margin,
-            safety,
-            realtime: args.realtime,
-            drift: partita_device::DriftOptions {
-                mode: if args.drift == "slip" {
-                    partita_device::DriftMode::FrameSlip
-                } else {
-                    partita_device::DriftMode::Resample
-                },
-                ..partita_device::DriftOptions::default()
-            },
-            ..StreamOptions::default()
-        };
-        let stream = devices.start(built.engine, &stream_options)?;
-        let info = stream.info().clone();
-        let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
-            (Some(p), _) => format!("{p} frames"),
-            (None, Some(r)) => format!("{r} frames (requested)"),
-            (None, None) => "host default".to_string(),
-        };
-        eprintln!(
-            "monitor: {} at {} Hz; in `{}` ({} ch {}, period {}) -> out `{}` ({} ch {}, period {})",
-            info.host,
-            rate,
-            info.input.device,
-            info.input.channels,
-            info.input.format,
-            period(&info.input),
-            info.output.device,
-            info.output.channels,
-            info.output.format,
-            period(&info.output)
-        );
-        let route = Route {
-            host: info.host.clone(),
-            rate,
-            input: info.input.device.clone(),
-            output: info.output.device.clone(),
-            engine_side: match info.side {
-                EngineSide::Capture => "input",
-                EngineSide::Playback => "output",
-            },
-            jack_latency: None,
-        };
-        (PlanNote { plan: built.plan, why: built.why }, Live::Bridged(stream), route)
+    let opener = Opener {
+        args: &args,
+        recipe: &recipe,
+        safety,
+        inputs,
+        outputs,
+        input_channels,
+        output_channels,
+        rebuilt_tx: rebuilt_tx.clone(),
     };
+    let (built, mut live, mut route) = opener.open()?;
+    let mut faults: Vec<String> = Vec::new();
+    let mut reconnects = 0u64;
+    let mut lost_seconds = 0.0;
     drop(rebuilt_tx);
-    let plan = built.plan;
+    let mut plan = built.plan;
     let rate = route.rate;
     if let Some(why) = &built.why {
         eprintln!("plan: {why}");
@@ -574,8 +420,32 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     loop {
         std::thread::sleep(Duration::from_millis(20));
         if let Some(f) = live.poll_fault() {
-            fault = Some(f);
-            break;
+            if !args.reconnect {
+                fault = Some(f);
+                break;
+            }
+            // --reconnect: close the dead stream, then try to open it again every second.
+            faults.push(f.to_string());
+            eprintln!("\n{f}\n--reconnect: retrying every second (Ctrl-C stops)");
+            let closed = std::mem::replace(&mut live, Live::Closed).stop();
+            lost_seconds += closed.seconds;
+            match reopen(&opener, &signals, deadline.map(|d| started + d)) {
+                Some(Ok((note, again, where_to))) => {
+                    let (c, s) = rebuilt_rx.recv().map_err(|_| "the engine's control handle was lost")?;
+                    control = c;
+                    spare = s;
+                    fade_frames = control.frames_for_ms(swap_fade_ms);
+                    bypass = false;
+                    live = again;
+                    route = where_to;
+                    plan = note.plan;
+                    reconnects += 1;
+                    eprintln!("reconnected");
+                }
+                Some(Err(e)) => return Err(e),
+                None => break,
+            }
+            continue;
         }
         if signals.stop_requested() || deadline.is_some_and(|d| started.elapsed() >= d) {
             break;
@@ -659,17 +529,266 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     if rebuilds > 0 {
         eprintln!("  rebuilds     {rebuilds} (the server's rate or period changed)");
     }
+    if reconnects > 0 || !faults.is_empty() {
+        eprintln!(
+            "  reconnects   {reconnects} (faults survived: {}); the figures above are the last connection's, {:.1} s \
+             of audio before it",
+            faults.join("; "),
+            lost_seconds
+        );
+    }
     if let Some(path) = &args.summary_json {
         let mut j = summary_json(&stats, &route, &plan, fault.as_ref().map(ToString::to_string));
         j["swaps_requested"] = json!(swaps);
         j["swaps_completed"] = json!(swaps_completed);
         j["rebuilds"] = json!(rebuilds);
+        j["reconnects"] = json!(reconnects);
+        j["faults_survived"] = json!(faults);
         std::fs::write(path, serde_json::to_string_pretty(&j)? + "\n")
             .map_err(|e| format!("{}: cannot write the summary: {e}", path.display()))?;
     }
     match fault {
         Some(f) => Err(f.to_string().into()),
         None => Ok(()),
+    }
+}
+
+/// What opening the live stream needs; [`Opener::open`] runs once at start and again on each
+/// `--reconnect`.
+struct Opener<'a> {
+    args: &'a MonitorArgs,
+    recipe: &'a Recipe,
+    safety: SafetyOptions,
+    inputs: usize,
+    outputs: usize,
+    input_channels: Option<Vec<usize>>,
+    output_channels: Option<Vec<usize>>,
+    /// Where the engine's control handle (and the other IR, prepared for it) goes, for this engine and
+    /// any the duplex client rebuilds.
+    rebuilt_tx: std::sync::mpsc::Sender<(Control, Option<PreparedIr>)>,
+}
+
+impl Opener<'_> {
+    /// Opens the host, builds the engine for its rate and period, starts the stream and prints where the
+    /// audio goes.
+    fn open(&self) -> Result<(PlanNote, Live, Route), Box<dyn std::error::Error>> {
+        let args = self.args;
+        let recipe = self.recipe;
+        let rebuilt_tx = &self.rebuilt_tx;
+        let (inputs, outputs, safety) = (self.inputs, self.outputs, self.safety);
+        let input_channels = self.input_channels.clone();
+        let output_channels = self.output_channels.clone();
+        let jack = args.host.as_deref().is_some_and(|h| h.eq_ignore_ascii_case("jack"));
+        Ok(if jack {
+            #[cfg(feature = "jack")]
+            {
+                for (flag, given) in [
+                    ("--input", args.input != DeviceSelector::Default),
+                    ("--output", args.output != DeviceSelector::Default),
+                    ("--engine-in-output", args.engine_in_output),
+                    ("--ring-margin", args.ring_margin.is_some()),
+                    ("--drift", args.drift != "resample"),
+                ] {
+                    if given {
+                        return Err(format!(
+                            "{flag} does not apply to JACK: partita runs as one JACK client with its own ports \
+                             (connect them with --input-channels/--output-channels, --no-connect, or a patchbay)"
+                        )
+                        .into());
+                    }
+                }
+                let options = partita_device::DuplexOptions {
+                    connect: !args.no_connect,
+                    input_channels,
+                    output_channels,
+                    safety,
+                    realtime: args.realtime,
+                    ..partita_device::DuplexOptions::default()
+                };
+                let duplex = partita_device::JackDuplex::open(&options, inputs, outputs)?;
+                let (rate, period) = (duplex.sample_rate_hz(), duplex.period_frames());
+                if let Some(r) = args.rate.filter(|&r| r != rate) {
+                    return Err(format!(
+                        "--rate {r}: the JACK server runs at {rate} Hz; restart it at {r} Hz or omit --rate"
+                    )
+                    .into());
+                }
+                if let Some(f) = args.device_frames.filter(|&f| f != period) {
+                    return Err(format!(
+                        "--device-frames {f}: the JACK server runs at {period} frames per period; change it (jack_bufsize {f}) \
+                         or omit --device-frames"
+                    )
+                    .into());
+                }
+                let built = recipe.build(rate, period as usize, &mut |note| eprintln!("{note}"))?;
+                // A rebuild keeps the block and mode this plan chose (under --latency-ms too).
+                let again = Recipe {
+                    block: built.plan.block_frames,
+                    zero_latency: built.plan.zero_latency,
+                    latency_ms: None,
+                    ..recipe.clone()
+                };
+                let tx = rebuilt_tx.clone();
+                let rebuild: partita_device::RebuildFn = Box::new(move |rate, period| {
+                    let b = again.build(rate, period, &mut |_| {}).map_err(|e| e.to_string())?;
+                    let mut engine = b.engine;
+                    let control = engine.control().ok_or("the engine's control handle was taken")?;
+                    let spare = b.alt.as_ref().map(|a| control.prepare(a)).transpose().map_err(|e| e.to_string())?;
+                    let _ = tx.send((control, spare));
+                    Ok(engine)
+                });
+                let mut built = built;
+                let control = built.engine.control().ok_or("the engine's control handle was taken")?;
+                let spare = built.alt.as_ref().map(|a| control.prepare(a)).transpose()?;
+                let _ = rebuilt_tx.send((control, spare));
+                let stream = duplex.start(built.engine, rebuild)?;
+                let latency = stream.latency();
+                // The ports at the other end of our connections, inputs then outputs.
+                let mine = format!("{}:", stream.info().client);
+                let ports = |ours: &str| {
+                    let list: Vec<&str> = stream
+                        .info()
+                        .connections
+                        .iter()
+                        .filter(|(a, b)| {
+                            a.starts_with(&format!("{mine}{ours}")) || b.starts_with(&format!("{mine}{ours}"))
+                        })
+                        .map(|(a, b)| if a.starts_with(&mine) { b.as_str() } else { a.as_str() })
+                        .collect();
+                    if list.is_empty() {
+                        "(not connected)".to_string()
+                    } else {
+                        list.join(", ")
+                    }
+                };
+                let route = Route {
+                    host: "JACK".into(),
+                    rate,
+                    input: ports("in_"),
+                    output: ports("out_"),
+                    engine_side: "duplex",
+                    jack_latency: Some((latency.capture_frames, latency.engine_frames, latency.playback_frames)),
+                };
+                eprintln!(
+                    "monitor: JACK at {rate} Hz, period {period} frames; client `{}` (one duplex client, no ring); in {} -> out {}",
+                    stream.info().client,
+                    route.input,
+                    route.output
+                );
+                eprintln!(
+                    "latency: {} frames ({:.3} ms) = capture {} + engine {} + playback {}, as JACK reports the connected ports",
+                    latency.total_frames(),
+                    f64::from(latency.total_frames()) * 1000.0 / f64::from(rate),
+                    latency.capture_frames,
+                    latency.engine_frames,
+                    latency.playback_frames
+                );
+                (PlanNote { plan: built.plan, why: built.why }, Live::Duplex(stream), route)
+            }
+            #[cfg(not(feature = "jack"))]
+            {
+                return Err(partita_device::DeviceError::NoHost {
+                    name: "jack".into(),
+                    available: partita_device::host_names(),
+                }
+                .into());
+            }
+        } else {
+            let device_options = DeviceOptions {
+                host: args.host.clone(),
+                input: args.input.clone(),
+                output: args.output.clone(),
+                sample_rate_hz: args.rate,
+                device_frames: args.device_frames,
+                input_channels,
+                output_channels,
+            };
+            let devices = LiveDevices::open(&device_options, inputs, outputs)?;
+            let rate = devices.sample_rate_hz();
+            // When the host does not say, assume 1024 frames, a long ALSA period.
+            let host_period = devices.period_frames().map_or(UNKNOWN_PERIOD_FRAMES, |p| p as usize);
+            let mut built = recipe.build(rate, host_period, &mut |note| eprintln!("{note}"))?;
+            let control = built.engine.control().ok_or("the engine's control handle was taken")?;
+            let spare = built.alt.as_ref().map(|a| control.prepare(a)).transpose()?;
+            let _ = rebuilt_tx.send((control, spare));
+            let stream_options = StreamOptions {
+                side: if args.engine_in_output { EngineSide::Playback } else { EngineSide::Capture },
+                margin_frames: args.ring_margin,
+                safety,
+                realtime: args.realtime,
+                drift: partita_device::DriftOptions {
+                    mode: if args.drift == "slip" {
+                        partita_device::DriftMode::FrameSlip
+                    } else {
+                        partita_device::DriftMode::Resample
+                    },
+                    ..partita_device::DriftOptions::default()
+                },
+                ..StreamOptions::default()
+            };
+            let stream = devices.start(built.engine, &stream_options)?;
+            let info = stream.info().clone();
+            let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
+                (Some(p), _) => format!("{p} frames"),
+                (None, Some(r)) => format!("{r} frames (requested)"),
+                (None, None) => "host default".to_string(),
+            };
+            eprintln!(
+                "monitor: {} at {} Hz; in `{}` ({} ch {}, period {}) -> out `{}` ({} ch {}, period {})",
+                info.host,
+                rate,
+                info.input.device,
+                info.input.channels,
+                info.input.format,
+                period(&info.input),
+                info.output.device,
+                info.output.channels,
+                info.output.format,
+                period(&info.output)
+            );
+            let route = Route {
+                host: info.host.clone(),
+                rate,
+                input: info.input.device.clone(),
+                output: info.output.device.clone(),
+                engine_side: match info.side {
+                    EngineSide::Capture => "input",
+                    EngineSide::Playback => "output",
+                },
+                jack_latency: None,
+            };
+            (PlanNote { plan: built.plan, why: built.why }, Live::Bridged(stream), route)
+        })
+    }
+}
+
+/// `--reconnect`: tries to open the stream again every second until it opens (`Some(Ok)`), a
+/// set-up error that retrying cannot cure (`Some(Err)`: a bad IR, say), Ctrl-C or the deadline (`None`).
+/// Errors of the host (no server, no device) are retried, each new one printed once.
+fn reopen(
+    opener: &Opener<'_>,
+    signals: &Signals,
+    deadline: Option<Instant>,
+) -> Option<Result<(PlanNote, Live, Route), Box<dyn std::error::Error>>> {
+    let mut last = String::new();
+    loop {
+        for _ in 0..50 {
+            if signals.stop_requested() || deadline.is_some_and(|d| Instant::now() >= d) {
+                return None;
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        }
+        match opener.open() {
+            Ok(opened) => return Some(Ok(opened)),
+            Err(e) if e.downcast_ref::<partita_device::DeviceError>().is_some() => {
+                let msg = e.to_string();
+                if msg != last {
+                    eprintln!("--reconnect: {msg}");
+                    last = msg;
+                }
+            }
+            Err(e) => return Some(Err(e)),
+        }
     }
 }
 

@@ -52,7 +52,12 @@ impl JackServer {
         Self::start_named(&name, period)
     }
 
-    fn start_named(name: &str, period: u32) -> Result<Self, String> {
+    /// [`start`](Self::start) under the name `name`, e.g. to bring a killed server back (it takes over the
+    /// dead one's registry slot).
+    ///
+    /// # Errors
+    /// As [`start`](Self::start).
+    pub fn start_named(name: &str, period: u32) -> Result<Self, String> {
         let name = name.to_string();
         let log = std::env::temp_dir().join(format!("{name}.log"));
         let log_file = std::fs::File::create(&log).map_err(|e| format!("cannot create {}: {e}", log.display()))?;
