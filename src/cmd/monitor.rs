@@ -1,13 +1,18 @@
-//! `partita monitor`: live convolution from an input device to an output device through an IR.
+//! `partita monitor`: live convolution from an input to an output through an IR.
 //!
-//! Opens the host and devices (`partita-device`), loads the IR at the device rate, plans the engine as
-//! `partita plan` does (block size, or a latency budget), starts the streams, prints a caution, a
-//! one-line status a few times a second when stderr is a terminal, and a summary at the end (also as
-//! JSON with `--summary-json`). Ends after `--seconds`, on Ctrl-C (or SIGTERM; a second one ends the
-//! process at once), or with an error and a non-zero exit when the device or server goes away. SIGUSR1
-//! toggles bypass, SIGUSR2 ends a safety mute, and SIGHUP swaps between `--ir` and `--alt-ir` with a
-//! crossfade (the engine's control API: the other IR is prepared off the audio thread and handed over by
-//! pointer). The signals arrive as flags from [`crate::signals`].
+//! Opens the host (`partita-device`): with `--host jack` one duplex JACK client (ports, the engine in its
+//! process callback, the latency registered with JACK), otherwise cpal input and output devices bridged
+//! by a ring. Loads the IR at the host's rate, plans the engine as `partita plan` does (block size, or a
+//! latency budget) for the host's period, starts, prints a caution, a one-line status a few times a
+//! second when stderr is a terminal, and a summary at the end (also as JSON with `--summary-json`) that
+//! tells the host's xruns, preempted callbacks and our own overruns apart. Ends after `--seconds`, on
+//! Ctrl-C (or SIGTERM; a second one ends the process at once), or with an error and a non-zero exit when
+//! the device or server goes away (`--reconnect` waits for it instead). SIGUSR1 toggles bypass, SIGUSR2
+//! ends a safety mute, and SIGHUP swaps between `--ir` and `--alt-ir` with a crossfade (the engine's
+//! control API: the other IR is prepared off the audio thread and handed over by pointer). The signals
+//! arrive as flags from [`crate::signals`]. When the JACK server's rate or period changes beyond what the
+//! engine takes, the duplex client asks for a new engine; it is built here, on the control thread, from
+//! the same [`Recipe`].
 
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
