@@ -249,6 +249,8 @@ impl Recipe {
 const MAX_HOST_FRAMES: usize = 4096;
 
 /// The running stream: the duplex JACK client, or the cpal streams and their ring for other hosts.
+// One value per run, on the control thread's stack: its size does not matter.
+#[allow(clippy::large_enum_variant)]
 enum Live {
     /// Between a fault and a reconnection.
     Closed,
@@ -576,7 +578,7 @@ struct Opener<'a> {
 impl Opener<'_> {
     /// Opens the host, builds the engine for its rate and period, starts the stream and prints where the
     /// audio goes.
-    fn open(&self) -> Result<(PlanNote, Live, Route), Box<dyn std::error::Error>> {
+    fn open(&self) -> Result<Opened, Box<dyn std::error::Error>> {
         let args = self.args;
         let recipe = self.recipe;
         let rebuilt_tx = &self.rebuilt_tx;
@@ -729,7 +731,6 @@ impl Opener<'_> {
                     },
                     ..partita_device::DriftOptions::default()
                 },
-                ..StreamOptions::default()
             };
             let stream = devices.start(built.engine, &stream_options)?;
             let info = stream.info().clone();
@@ -774,7 +775,7 @@ fn reopen(
     opener: &Opener<'_>,
     signals: &Signals,
     deadline: Option<Instant>,
-) -> Option<Result<(PlanNote, Live, Route), Box<dyn std::error::Error>>> {
+) -> Option<Result<Opened, Box<dyn std::error::Error>>> {
     let mut last = String::new();
     loop {
         for _ in 0..50 {
@@ -796,6 +797,9 @@ fn reopen(
         }
     }
 }
+
+/// An opened stream: the plan it runs, the stream, and where its audio goes.
+type Opened = (PlanNote, Live, Route);
 
 /// The plan and the note of a [`Built`] whose engine went to the stream.
 struct PlanNote {

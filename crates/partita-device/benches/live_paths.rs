@@ -76,6 +76,9 @@ fn median_lag(played: &[f32], heard: &[f32]) -> Option<usize> {
     lags.get(lags.len() / 2).copied()
 }
 
+/// Polls a running path (`false`) or stops it (`true`); gives its counters and its reported latency.
+type Finish = Box<dyn FnMut(bool) -> (Stats, f64)>;
+
 /// Runs one path for `seconds` with impulses played into it; returns the row.
 fn run(path: &'static str, period: u32, seconds: f64, ir: &ImpulseResponse) -> Row {
     let len = (seconds * f64::from(RATE)) as usize;
@@ -84,7 +87,7 @@ fn run(path: &'static str, period: u32, seconds: f64, ir: &ImpulseResponse) -> R
         clicks[k] = 1.0;
     }
     let quiet = SafetyOptions { fade_in_ms: 0.0, ..SafetyOptions::default() };
-    let (ins, outs, mut finish): (Vec<String>, Vec<String>, Box<dyn FnMut(bool) -> (Stats, f64)>) = match path {
+    let (ins, outs, mut finish): (Vec<String>, Vec<String>, Finish) = match path {
         "duplex" => {
             let d =
                 JackDuplex::open(&DuplexOptions { connect: false, safety: quiet, ..DuplexOptions::default() }, 2, 2)

@@ -21,7 +21,8 @@ pub(crate) struct TimeHistogram {
     max_ns: AtomicU64,
 }
 
-/// Percentiles of a [`TimeHistogram`], microseconds (each the upper edge of its bucket; `max` exact).
+/// Percentiles of the engine callback's wall-clock time, microseconds, from a log-linear histogram of 8
+/// buckets per octave (each percentile the upper edge of its bucket, at most 12.5% high; `max` exact).
 #[derive(Debug, Clone, Copy, PartialEq, Default)]
 pub struct CallbackTimes {
     /// Callbacks timed.

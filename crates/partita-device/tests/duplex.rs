@@ -163,7 +163,7 @@ fn impulse_delay_equals_the_registered_latency() {
         assert_eq!(first, engine_latency, "the impulse's delay through the graph");
         for (c, sig) in [&left, &right].into_iter().enumerate() {
             let mut want = vec![0.0f64; start + engine_latency];
-            want.extend(naive::convolve(sig, &ir.channel(c)));
+            want.extend(naive::convolve(sig, ir.channel(c)));
             let (lag, bound) = best_lag(&rec[c], &want, start..capacity, 0..1);
             assert_eq!(lag, 0);
             assert!(bound.within_design_bound(), "channel {c}: {bound:?}");
