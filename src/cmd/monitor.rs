@@ -296,6 +296,18 @@ impl Live {
         }
     }
 
+    /// The duplex client's latency now: capture, engine and playback frames.
+    fn jack_latency(&self) -> Option<(u32, u32, u32)> {
+        match self {
+            #[cfg(feature = "jack")]
+            Self::Duplex(d) => {
+                let l = d.latency();
+                Some((l.capture_frames, l.engine_frames, l.playback_frames))
+            }
+            _ => None,
+        }
+    }
+
     fn stop(self) -> Stats {
         match self {
             Self::Closed => Stats::default(),
@@ -526,6 +538,11 @@ pub fn run(args: MonitorArgs) -> CmdResult {
     }
     if terminal {
         eprintln!();
+    }
+    // The duplex client's latency as JACK reports it now (the figures at start may have changed with a
+    // rebuild or a reconnection).
+    if let Some(l) = live.jack_latency() {
+        route.jack_latency = Some(l);
     }
     let stats = live.stop();
     let swaps_completed = control.status().swaps_completed;
@@ -814,7 +831,7 @@ fn print_summary(s: &Stats, route: &Route, fault: Option<&str>) {
             "  latency      {} frames = {:.3} ms input to output (capture {capture} + engine {engine} + playback \
              {playback}, as JACK reports the connected ports)",
             capture + engine + playback,
-            s.latency_ms
+            f64::from(capture + engine + playback) * 1000.0 / f64::from(route.rate)
         ),
         None => eprintln!(
             "  latency      {:.3} ms mean input to output (min {:.3}, max {:.3}; engine {:.3})",
@@ -899,7 +916,8 @@ fn summary_json(s: &Stats, route: &Route, plan: &partita_core::Plan, fault: Opti
         "nonfinite_outputs": s.nonfinite_outputs,
         "mutes": s.mutes,
         "muted": s.muted.map(|m| m.to_string()),
-        "latency_ms": s.latency_ms,
+        // Duplex JACK: exact, from the ports' latencies at the end; otherwise the mean of the estimates.
+        "latency_ms": route.jack_latency.map_or(s.latency_ms, |(c, e, p)| f64::from(c + e + p) * 1000.0 / f64::from(route.rate)),
         "latency_min_ms": s.latency_min_ms,
         "latency_max_ms": s.latency_max_ms,
         "latency_frames": route.jack_latency.map(|(c, e, p)| c + e + p),

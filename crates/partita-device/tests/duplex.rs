@@ -205,10 +205,14 @@ fn thirty_seconds_at_period_64_with_exact_latency() {
             "playback latency JACK reports on our input port"
         );
         assert_eq!(run_for(&mut stream, seconds), None);
+        assert_eq!(stream.latency().total_frames(), total, "at the end of the run");
         let stats = stream.stop();
         report(&format!("{seconds} s, zero latency {zero_latency}"), &stats);
         assert_eq!(stats.overruns(), 0, "{stats:?}");
-        assert!((stats.latency_ms - f64::from(total) * 1000.0 / f64::from(RATE)).abs() < 1e-6, "{stats:?}");
+        // The latency figures are JACK's port latencies sampled at each poll: the last is exact. (A poll that
+        // falls while the server recomputes latencies, after an xrun, can read a partial sum: the mean is
+        // not asserted.)
+        assert!((stats.latency_last_ms - f64::from(total) * 1000.0 / f64::from(RATE)).abs() < 1e-6, "{stats:?}");
         assert_eq!(stats.callback_priority, None, "real-time priority is never asked by default");
         assert!(stats.callback_times.count as f64 >= 0.9 * seconds * f64::from(RATE) / 64.0, "{stats:?}");
         assert!(stats.callback_times.p50_us > 0.0 && stats.callback_times.max_us >= stats.callback_times.p999_us);
