@@ -16,7 +16,7 @@
 //! assert_eq!(partita_plugin::PLUGIN_ID, "org.partita.convolution");
 //! ```
 //!
-//! Real time: the audio thread runs [`processor::Processor::process`], which copies the host's buffers
+//! Real time: the audio thread runs the `process` of [`processor::Processor`], which copies the host's buffers
 //! into scratch allocated at activation, hands parameter events to the engine as commands at their
 //! sample positions ([`partita_core::Engine::send`]) and runs the engine; no allocation, lock, I/O or
 //! wait. IRs are made and prepared on the main thread and swapped in with a crossfade.

@@ -149,8 +149,8 @@ impl Stream {
         let mut at = 0;
         while at < total {
             let n = sizes().min(total - at).min(self.max);
-            for c in 0..2 {
-                self.input[c][..n].copy_from_slice(&input[c][at..at + n]);
+            for (buf, x) in self.input.iter_mut().zip(input) {
+                buf[..n].copy_from_slice(&x[at..at + n]);
             }
             self.events.clear();
             for &(frame, id, value) in changes.iter().filter(|c| c.0 >= at && c.0 < at + n) {
@@ -182,8 +182,8 @@ impl Stream {
             });
             self.heap_ops += ops;
             self.calls += 1;
-            for c in 0..2 {
-                out[c][at..at + n].copy_from_slice(&self.output[c][..n]);
+            for (y, buf) in out.iter_mut().zip(&self.output) {
+                y[at..at + n].copy_from_slice(&buf[..n]);
             }
             at += n;
         }
