@@ -180,6 +180,8 @@ impl<'a> MainThread<'a> {
     pub fn set_source(&self, source: IrSource) -> Result<(), PluginError> {
         let mut active = self.active.borrow_mut();
         if let Some(a) = active.as_mut() {
+            // IRs retired by earlier swaps are freed here (and in `on_main_thread`), off the audio thread.
+            while a.control.next_event().is_some() {}
             let ir = make_ir(&source, a.sample_rate_hz)?;
             let fits = (ir.channels() < 4 || a.true_stereo) && ir.frames() <= a.control.max_ir_frames();
             let swapped = fits

@@ -32,7 +32,8 @@ use support::*;
 #[global_allocator]
 static ALLOC: partita_testkit::TrapAllocator = partita_testkit::TrapAllocator;
 
-/// The IR folder of these tests (set before any instance lists it): a true-stereo and two stereo WAVs.
+/// The IR folder of these tests (set before any instance lists it): two stereo WAVs, a true-stereo one
+/// and a mono one (24-bit).
 fn ir_folder() -> &'static Path {
     static DIR: OnceLock<PathBuf> = OnceLock::new();
     DIR.get_or_init(|| {
@@ -44,6 +45,7 @@ fn ir_folder() -> &'static Path {
         write_wav(&dir.join("a-stereo.wav"), &two, 48_000, SampleFormat::F32, Dither::default()).unwrap();
         let other: Vec<Vec<f32>> = (0..2).map(|c| taps(30 + c, 7000)).collect();
         write_wav(&dir.join("c-stereo.wav"), &other, 44_100, SampleFormat::F32, Dither::default()).unwrap();
+        write_wav(&dir.join("d-mono.wav"), &[taps(40, 5000)], 48_000, SampleFormat::Pcm24, Dither::default()).unwrap();
         // Every test calls this before making an instance, so no instance reads the variable before it is set.
         std::env::set_var(IR_FOLDER_ENV, &dir);
         dir
@@ -135,7 +137,7 @@ fn descriptor_ports_parameters_and_discovery_are_as_documented() {
         (7, "Room volume", 20.0, 20_000.0, 800.0),
         (8, "Reverb time", 0.2, 8.0, 1.6),
         (9, "HF decay", 0.2, 1.0, 0.6),
-        (10, "IR file", 0.0, 3.0, 0.0),
+        (10, "IR file", 0.0, 4.0, 0.0),
     ]
     .into_iter()
     .map(|(i, n, a, b, c)| (i, n.to_string(), a, b, c))
@@ -199,19 +201,19 @@ fn descriptor_ports_parameters_and_discovery_are_as_documented() {
 }
 
 /// Random host calls (1 frame, odd sizes, up to 1024) against the direct form: the default mix on the
-/// default custom room (a short reverb time, so the oracle is quick), and wet only on a true-stereo WAV
-/// loaded through preset-load; at 44.1 and 48 kHz (deactivated and reactivated at the new rate), with zero
-/// latency and a 256-frame block. Nothing is allocated on the process thread.
+/// default custom room (a short reverb time, so the oracle is quick), and wet only on a true-stereo and a
+/// mono WAV loaded through preset-load; at 44.1 and 48 kHz (deactivated and reactivated at the new rate),
+/// with zero latency and a 256-frame block. Nothing is allocated on the process thread.
 #[test]
 fn host_calls_match_the_direct_form_at_both_rates_and_latency_modes() {
     let folder = ir_folder();
     let entry = in_process_entry();
     let mut heap_ops = 0;
     let mut worst = (0.0f64, 0.0f64);
-    for wav in [false, true] {
+    for wav in [None, Some("b-true-stereo.wav"), Some("d-mono.wav")] {
         let mut instance = new_instance(&entry);
-        let (source, mix) = if wav {
-            let path = folder.join("b-true-stereo.wav");
+        let (source, mix) = if let Some(name) = wav {
+            let path = folder.join(name);
             preset_load(&mut instance, &path);
             set_params(&mut instance, &[(ParamId::Wet, 100.0), (ParamId::Dry, 0.0)]);
             (IrSource::File(read_file_ir(&path).unwrap()), (1.0, 0.0))
@@ -235,7 +237,7 @@ fn host_calls_match_the_direct_form_at_both_rates_and_latency_modes() {
                 for o in 0..2 {
                     let e = ErrorBound::measure(&got[o], &want[o]);
                     worst = (worst.0.max(e.max_over_peak), worst.1.max(e.relative_rms));
-                    e.assert_design_bound(&format!("wav {wav}, {rate} Hz, latency {latency}, output {o}"));
+                    e.assert_design_bound(&format!("{wav:?}, {rate} Hz, latency {latency}, output {o}"));
                 }
                 instance.deactivate(processor.stop_processing());
             }
