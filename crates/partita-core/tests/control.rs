@@ -6,7 +6,7 @@ mod support;
 
 use partita_core::{
     Command, ControlError, Engine, EngineOptions, Event, FadeState, ImpulseResponse, Lateness, Level, Plan, Routing,
-    Schedule, SwapReport,
+    Schedule, SendError, SwapReport,
 };
 use partita_testkit::ErrorBound;
 use support::*;
@@ -238,6 +238,61 @@ fn gains_ramp_linearly_from_the_frame_they_take_effect() {
             .collect();
         ErrorBound::measure(&got[0], &want).assert_design_bound(&format!("{:?}", plan.levels));
     }
+}
+
+/// `Engine::send` (commands from the audio thread itself, as a plugin's parameter events) applies at the
+/// same block boundary and ramps exactly as `Control::send` from before the same call: the outputs are
+/// bit-identical to those of the previous test's path, which is checked against the oracle there.
+#[test]
+fn engine_send_applies_like_control_send() {
+    for plan in [plans(600)[0].clone(), plans(600)[4].clone()] {
+        let ir = random_ir(2, 600, 41);
+        let input = padded(&random_input(2, 6000, 42), 7000);
+        let commands =
+            [Command::WetGain(0.5), Command::DryGain(0.25), Command::OutputGainDb(-6.0), Command::Bypass(true)];
+        let mut runs = Vec::new();
+        for by_engine in [false, true] {
+            let mut e = engine(&plan, &ir, Routing::Stereo, 50);
+            let mut control = e.control().unwrap();
+            let mut sizes = random_sizes(43, 50);
+            let mut out = vec![vec![0.0f32; 7000]; 2];
+            let (mut at, mut k) = (0, 0);
+            while at < 7000 {
+                if k == 20 || k == 60 {
+                    let batch = if k == 20 { &commands[..3] } else { &commands[3..] };
+                    for &c in batch {
+                        if by_engine {
+                            e.send(c).unwrap();
+                        } else {
+                            control.send(c).unwrap();
+                        }
+                    }
+                }
+                let n = sizes().min(7000 - at);
+                let (l, r) = out.split_at_mut(1);
+                e.process(
+                    &[&input[0][at..at + n], &input[1][at..at + n]],
+                    &mut [&mut l[0][at..at + n], &mut r[0][at..at + n]],
+                )
+                .unwrap();
+                at += n;
+                k += 1;
+            }
+            runs.push((out, applied_frames(control.poll())));
+        }
+        assert_eq!(runs[0].1.len(), 4, "{:?}", runs[0].1);
+        assert_eq!(runs[0].1, runs[1].1, "the same boundaries apply the commands");
+        assert!(runs[0].0 == runs[1].0, "{:?}: outputs differ", plan.levels);
+    }
+    // Refusals are those of Control::send, and the audio-side queue holds 64 commands per boundary.
+    let mut e = engine(&plans(600)[0], &random_ir(6, 600, 44), Routing::Matrix { inputs: 2, outputs: 3 }, 50);
+    assert!(matches!(e.send(Command::DryGain(0.5)), Err(SendError::Invalid { .. })));
+    assert!(matches!(e.send(Command::WetGain(f32::NAN)), Err(SendError::Invalid { .. })));
+    assert!(matches!(e.send(Command::PreDelayFrames(301)), Err(SendError::Invalid { .. })));
+    for _ in 0..64 {
+        e.send(Command::WetGain(0.5)).unwrap();
+    }
+    assert!(matches!(e.send(Command::WetGain(0.5)), Err(SendError::QueueFull(Command::WetGain(_)))));
 }
 
 #[test]

@@ -55,6 +55,9 @@ fn every_control_operation_on_the_audio_path_is_heap_free() {
                     220 => control.send(Command::OutputGainDb(-3.0)).unwrap(),
                     230 => control.send(Command::PreDelayFrames(700)).unwrap(),
                     240 => control.send(Command::Bypass(true)).unwrap(),
+                    // Commands from the audio thread itself (a plugin's parameter events).
+                    250 => engine.send(Command::WetGain(0.9)).unwrap(),
+                    260 => engine.send(Command::OutputGainDb(-1.0)).unwrap(),
                     400 => control.send(Command::Bypass(false)).unwrap(),
                     2000 => control.send(Command::Reset).unwrap(),
                     2100 => control.send(Command::PreDelayFrames(0)).unwrap(),
@@ -76,7 +79,7 @@ fn every_control_operation_on_the_audio_path_is_heap_free() {
         let retired = events.iter().filter(|e| matches!(e, Event::Retired { .. })).count();
         let applied = events.iter().filter(|e| matches!(e, Event::Applied { .. })).count();
         assert_eq!(retired, 3, "{schedule}: every swap finished and handed its old IR back");
-        assert_eq!(applied, 8, "{schedule}: every command took effect (reset included)");
+        assert_eq!(applied, 10, "{schedule}: every command took effect (reset included)");
         let status = control.status();
         assert_eq!(status.swaps_completed, 3);
         assert!(seen.contains(&FadeState::Crossfading), "{schedule}: states seen {seen:?}");

@@ -413,6 +413,20 @@ fn offline_auto_has_no_workers_and_the_lowest_mean_cost() {
     }
 }
 
+/// Without workers (`allow_workers(false)`, the plugin's default), the automatic schedule chooses among
+/// plans that start no thread, on a machine slow enough that the default planner does use workers.
+#[test]
+fn auto_without_workers_starts_no_thread() {
+    let stereo = Shape { inputs: 2, outputs: 2, paths: 4 };
+    // A machine 100 times slower than the flop model's (as the core tests' `auto_plan`).
+    let slow = CostModel::Flops { flops_per_second: 24e7 };
+    let with = Planner::new().shape(stereo).cost_model(slow.clone()).plan(480_000).unwrap();
+    assert!(with.levels.iter().any(|l| l.schedule == Schedule::Workers), "needs workers by default: {:?}", with.levels);
+    let plan = Planner::new().shape(stereo).cost_model(slow).allow_workers(false).plan(480_000).unwrap();
+    assert!(plan.levels.iter().all(|l| l.schedule != Schedule::Workers), "{:?}", plan.levels);
+    assert!(plan.levels.iter().any(|l| l.schedule == Schedule::Sliced), "needs sliced levels: {:?}", plan.levels);
+}
+
 /// `--latency-ms` judges blocks by the heaviest call under a fixed schedule too: S1 all-sync within 3 ms
 /// fits no block's 8% headroom, so the chosen block has the lightest predicted heaviest call of every
 /// candidate and the reason says that none fits.

@@ -250,6 +250,54 @@ impl RoomSpec {
         }
     }
 
+    /// A room described the way a musician does: its volume in m^3, its reverberation time in seconds (the
+    /// RT60 at 500 Hz and 1 kHz, and below) and how fast the highs die, as the ratio `hf_ratio` of the RT60
+    /// at 4 kHz to the one at 500 Hz (1 keeps the highs as long as the mids, 0.5 halves them). Named `name`.
+    ///
+    /// Our own choices fill in the rest: a shoebox with sides in the ratio 1.6 : 1 : 0.62 (long, a little
+    /// low); the source a quarter of the length in, the spaced pair (60 cm) at 0.6 of the length, both
+    /// near the middle of the width, 1.5 m and 1.7 m up (40% and 50% of the height in low rooms). Above
+    /// 500 Hz the RT60 moves geometrically with frequency towards `hf_ratio` at 4 kHz (and on to 8 kHz);
+    /// below it stays at `rt60_s`. The mixing time is sqrt(V) ms (a rule of thumb for where reflections
+    /// become dense), at least 20 ms after the direct sound and at most 200 ms; the crossfade is 30 ms (less
+    /// in small rooms); the IR lasts 1.1 times the longest band's RT60 plus 0.1 s. Rendered at 48 kHz:
+    /// [`with_sample_rate`](Self::with_sample_rate) changes that. Check the result with
+    /// [`validate`](Self::validate): a non-finite or non-positive figure fails there.
+    ///
+    /// ```
+    /// use partita_room::room::RoomSpec;
+    /// let room = RoomSpec::from_character("hall", 2000.0, 1.8, 0.6);
+    /// assert!(room.validate().is_ok());
+    /// assert!((room.volume_m3() - 2000.0).abs() < 1e-6);
+    /// assert!((room.rt60_s[2] - 1.8).abs() < 1e-12 && (room.rt60_s[5] - 1.8 * 0.6).abs() < 1e-12);
+    /// ```
+    pub fn from_character(name: &str, volume_m3: f64, rt60_s: f64, hf_ratio: f64) -> Self {
+        const SIDES: [f64; 3] = [1.6, 1.0, 0.62];
+        let k = (volume_m3 / (SIDES[0] * SIDES[1] * SIDES[2])).cbrt();
+        let [l, w, h] = SIDES.map(|r| r * k);
+        let source_m = [0.25 * l, 0.45 * w, (0.4 * h).min(1.5)];
+        let ear = (0.5 * h).min(1.7);
+        let receivers_m = [[0.6 * l, 0.5 * w - 0.3, ear], [0.6 * l, 0.5 * w + 0.3, ear]];
+        // Octaves above 500 Hz of each band (125 Hz .. 8 kHz); 4 kHz is three octaves up.
+        let octaves_above_500 = [0.0, 0.0, 0.0, 1.0, 2.0, 3.0, 4.0];
+        let rt60 = octaves_above_500.map(|o: f64| rt60_s * hf_ratio.powf(o / 3.0));
+        let mut spec = Self {
+            name: name.into(),
+            dimensions_m: [l, w, h],
+            source_m,
+            receivers_m,
+            rt60_s: rt60,
+            mixing_time_s: 0.0,
+            crossfade_s: 0.030,
+            length_s: 1.1 * rt60.iter().copied().fold(0.0, f64::max) + 0.1,
+            sample_rate_hz: 48_000,
+        };
+        let direct_s = spec.direct_distance_m(0).max(spec.direct_distance_m(1)) / SPEED_OF_SOUND_M_PER_S;
+        spec.mixing_time_s = (volume_m3.sqrt() * 1e-3).max(direct_s + 0.020).min(0.200);
+        spec.crossfade_s = spec.crossfade_s.min(spec.mixing_time_s - direct_s);
+        spec
+    }
+
     /// Every preset, smallest first.
     pub fn presets() -> Vec<Self> {
         vec![Self::tiled_stairwell(), Self::timber_barn()]

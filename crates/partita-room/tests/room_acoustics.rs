@@ -219,6 +219,28 @@ fn other_takes_measure_the_same_rooms() {
 }
 
 #[test]
+fn rooms_from_volume_rt60_and_hf_ratio_measure_what_they_were_given() {
+    // RoomSpec::from_character (the plugin's built-in custom room): small, middle and large rooms, dull and
+    // bright; the spec validates, has the volume asked for, and the rendered IR's T30 at 500 Hz is the given
+    // RT60 and at 4 kHz the given ratio of it, within 5%.
+    for (volume_m3, rt60_s, hf_ratio) in [(60.0, 0.7, 0.8), (1500.0, 2.2, 0.5), (12_000.0, 3.5, 1.0)] {
+        let spec = RoomSpec::from_character("test", volume_m3, rt60_s, hf_ratio);
+        spec.validate().unwrap_or_else(|e| panic!("V={volume_m3}: {e}"));
+        assert!(rel(spec.volume_m3(), volume_m3).abs() < 1e-9);
+        let ir = render_room_ir(&spec, DEMO_SEED);
+        let measured = band_t30(&ir[0], FS, FilterPhase::Causal);
+        let (t500, t4k) = (measured[2], measured[5]);
+        println!("V={volume_m3} T={rt60_s} hf={hf_ratio}: T30 500 Hz {t500:.3} s, 4 kHz {t4k:.3} s");
+        assert!(rel(t500, rt60_s).abs() < 0.05, "V={volume_m3}: T30(500) {t500:.3}, want {rt60_s}");
+        assert!(
+            rel(t4k, rt60_s * hf_ratio).abs() < 0.05,
+            "V={volume_m3}: T30(4k) {t4k:.3}, want {}",
+            rt60_s * hf_ratio
+        );
+    }
+}
+
+#[test]
 fn the_rt60_check_notices_a_ten_percent_error() {
     // Render the stairwell with every RT60 10% longer: its 500 Hz..2 kHz T30s must fail the 5% check against the
     // original values, and pass against the new ones. The measurement is not an echo of the spec.

@@ -159,28 +159,7 @@ impl Control {
     /// gain or bypass on an engine whose shape has no dry signal (check with [`has_dry`](Self::has_dry);
     /// see [`Mix`](crate::Mix)). [`SendError::QueueFull`] hands the command back when the queue is full.
     pub fn send(&mut self, command: Command) -> Result<(), SendError> {
-        let invalid = |reason| Err(SendError::Invalid { command, reason });
-        let not_finite = |parameter| invalid(MixError::NotFinite { parameter });
-        match command {
-            Command::WetGain(g) if !g.is_finite() => return not_finite("wet"),
-            Command::DryGain(g) if !g.is_finite() => return not_finite("dry"),
-            Command::OutputGainDb(db) if !(db.is_finite() && 10f32.powf(db / 20.0).is_finite()) => {
-                return not_finite("output gain")
-            }
-            Command::PreDelayFrames(d) if d > self.recipe.max_predelay_frames => {
-                return invalid(MixError::PreDelayTooLong {
-                    predelay_frames: d,
-                    max_predelay_frames: self.recipe.max_predelay_frames,
-                })
-            }
-            Command::DryGain(g) if g != 0.0 && !self.has_dry => {
-                return invalid(MixError::NoDryPath { inputs: self.shape.0, outputs: self.shape.1 })
-            }
-            Command::Bypass(true) if !self.has_dry => {
-                return invalid(MixError::NoDryPath { inputs: self.shape.0, outputs: self.shape.1 })
-            }
-            _ => {}
-        }
+        check_command(command, self.recipe.max_predelay_frames, self.shape, self.has_dry)?;
         self.ends.commands.try_push(command).map_err(SendError::QueueFull)
     }
 
@@ -241,6 +220,32 @@ impl Control {
     /// A counters-only view (cheap to clone, `Sync`).
     pub fn monitor(&self) -> Monitor {
         self.monitor.clone()
+    }
+}
+
+/// The one check of a command against an engine built for pre-delays up to `max_predelay_frames`, with
+/// `shape` (inputs, outputs) and a dry signal or not: [`Control::send`] and [`Engine::send`](crate::Engine::send)
+/// both refuse what it refuses. Never allocates (the audio thread calls it).
+pub(crate) fn check_command(
+    command: Command,
+    max_predelay_frames: usize,
+    (inputs, outputs): (usize, usize),
+    has_dry: bool,
+) -> Result<(), SendError> {
+    let invalid = |reason| Err(SendError::Invalid { command, reason });
+    let not_finite = |parameter| invalid(MixError::NotFinite { parameter });
+    match command {
+        Command::WetGain(g) if !g.is_finite() => not_finite("wet"),
+        Command::DryGain(g) if !g.is_finite() => not_finite("dry"),
+        Command::OutputGainDb(db) if !(db.is_finite() && 10f32.powf(db / 20.0).is_finite()) => {
+            not_finite("output gain")
+        }
+        Command::PreDelayFrames(d) if d > max_predelay_frames => {
+            invalid(MixError::PreDelayTooLong { predelay_frames: d, max_predelay_frames })
+        }
+        Command::DryGain(g) if g != 0.0 && !has_dry => invalid(MixError::NoDryPath { inputs, outputs }),
+        Command::Bypass(true) if !has_dry => invalid(MixError::NoDryPath { inputs, outputs }),
+        _ => Ok(()),
     }
 }
 

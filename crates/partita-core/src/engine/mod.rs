@@ -11,9 +11,9 @@ use realfft::RealFftPlanner;
 use ringbuf::traits::{Consumer, Observer, Producer};
 
 use crate::control::wire::{queues, Command, ControlEnds, Counters, EngineEnds, Event, Monitor, StatusCells};
-use crate::control::Control;
+use crate::control::{check_command, Control};
 use crate::denormal::DenormalGuard;
-use crate::error::{EngineError, ProcessError};
+use crate::error::{EngineError, ProcessError, SendError};
 use crate::head::Head;
 use crate::ir::ImpulseResponse;
 use crate::kernel::Kernel;
@@ -86,7 +86,16 @@ pub struct Engine {
     ends: EngineEnds,
     control: Option<ControlEnds>,
     recipe: Arc<SpectraRecipe>,
+    /// Commands queued on the audio thread itself ([`Engine::send`]): a fixed capacity, never grown; read
+    /// from `local_read` on at block boundaries, after the control queue's.
+    local: Vec<Command>,
+    local_read: usize,
+    /// Whether the shape has a dry signal (computed at build: the check on the audio thread must not allocate).
+    has_dry: bool,
 }
+
+/// Commands [`Engine::send`] holds until the next block boundary.
+const LOCAL_COMMANDS: usize = 64;
 
 impl Engine {
     /// Builds an engine for `plan`, `ir` and `routing`, accepting host calls of 1 to `max_host_frames`
@@ -190,6 +199,7 @@ impl Engine {
         }
 
         let (ends, control) = queues();
+        let has_dry = mix::dry_sources(routes.inputs, routes.outputs).is_some();
         let q = routes.outputs;
         let ring_set = || (0..q).map(|_| TimeRing::new(layout.output_reach)).collect::<Vec<_>>();
         let out = OutputStage::new(
@@ -221,6 +231,9 @@ impl Engine {
             ends,
             control: Some(control),
             recipe,
+            local: Vec::with_capacity(LOCAL_COMMANDS),
+            local_read: 0,
+            has_dry,
         })
     }
 
@@ -363,10 +376,48 @@ impl Engine {
         }
     }
 
+    /// Queues a command from the audio thread itself, between two [`process`](Self::process) calls (a
+    /// plugin's parameter events, which arrive with the audio): applied at the next block boundary after
+    /// the commands of the [`Control`] queue, then ramped like them. Refuses what
+    /// [`Control::send`] refuses. Never allocates, locks or waits.
+    ///
+    /// # Errors
+    /// [`SendError::Invalid`] as [`Control::send`]; [`SendError::QueueFull`] when 64 commands already wait
+    /// for the next block boundary.
+    pub fn send(&mut self, command: Command) -> Result<(), SendError> {
+        let shape = (self.routes.inputs, self.routes.outputs);
+        check_command(command, self.options.max_predelay_frames, shape, self.has_dry)?;
+        if self.local.len() == self.local.capacity() && self.local_read > 0 {
+            // Drain shifts the unread commands to the front; it never frees or reallocates.
+            self.local.drain(..self.local_read);
+            self.local_read = 0;
+        }
+        if self.local.len() == self.local.capacity() {
+            return Err(SendError::QueueFull(command));
+        }
+        self.local.push(command);
+        Ok(())
+    }
+
+    /// The next queued command: the control queue's first, then those of [`send`](Self::send).
+    fn next_command(&mut self) -> Option<Command> {
+        if let Some(command) = self.ends.commands.try_pop() {
+            return Some(command);
+        }
+        let command = self.local.get(self.local_read).copied();
+        if command.is_some() {
+            self.local_read += 1;
+        } else if self.local_read > 0 {
+            self.local.clear();
+            self.local_read = 0;
+        }
+        command
+    }
+
     /// Applies queued commands (all of them, unless a reset is already running: the rest wait).
     fn apply_commands(&mut self, emit: i64) {
         while self.reset.is_none() {
-            let Some(command) = self.ends.commands.try_pop() else { break };
+            let Some(command) = self.next_command() else { break };
             match self.out.apply(command) {
                 Taken::Now => self.report(command, emit),
                 Taken::Deferred => {} // reported when it starts

@@ -48,6 +48,8 @@ pub struct Planner {
     /// The automatic schedule also tries the mixed sliced-then-workers candidates (off while
     /// [`plan_for_latency`](Planner::plan_for_latency) scans block sizes, on for its final plan).
     auto_mixed: bool,
+    /// The automatic schedule may put levels on worker threads ([`allow_workers`](Planner::allow_workers)).
+    allow_workers: bool,
 }
 
 /// The share of a host call's deadline, in percent, that the automatic schedule lets the predicted
@@ -99,6 +101,7 @@ impl Planner {
             offline: false,
             workers_from_frames: None,
             auto_mixed: true,
+            allow_workers: true,
         }
     }
 
@@ -232,6 +235,16 @@ impl Planner {
         self
     }
 
+    /// Whether the automatic schedule ([`auto`](Self::auto)) may put levels on worker threads (on by
+    /// default). Off, it chooses among the plans without workers (`sync` and `sliced` levels), so the
+    /// engine starts no thread: for a host that runs many engines at once (a plugin instance per track),
+    /// where a thread per engine would multiply. A fixed [`schedule`](Self::schedule) is kept as given.
+    #[must_use = "a builder method returns the changed planner"]
+    pub fn allow_workers(mut self, allow: bool) -> Self {
+        self.allow_workers = allow;
+        self
+    }
+
     /// The automatic schedule's headroom in percent of a call's deadline, or `None` for a fixed schedule.
     pub fn auto_headroom_pct(&self) -> Option<f64> {
         self.auto_headroom_pct
@@ -300,7 +313,7 @@ impl Planner {
             .collect();
         for &size in &sizes {
             candidates.push(fixed.clone().schedule(Schedule::Sliced).min_sliced_frames(size));
-            if !self.offline && size >= worker_floor {
+            if !self.offline && self.allow_workers && size >= worker_floor {
                 candidates.push(fixed.clone().schedule(Schedule::Workers).min_worker_frames(size));
                 // Mixed: sliced from a smaller size on, workers from this one.
                 for &sliced in sizes.iter().filter(|&&s| self.auto_mixed && s < size) {
