@@ -248,7 +248,7 @@ fn a_busy_second_core_causes_no_overrun_of_ours() {
         let duplex = JackDuplex::open(&DuplexOptions::default(), 2, 2).expect("duplex client");
         let engine = engine_for(&ir, 64, false, schedule, 64);
         let mut stream = duplex.start(engine, rebuild_for(&ir, 64, schedule)).expect("duplex starts");
-        assert_eq!(run_for(&mut stream, 8.0), None);
+        assert_eq!(run_for(&mut stream, 6.0), None);
         let stats = stream.stop();
         report(&format!("{what}, other core busy"), &stats);
         if schedule != Some(Schedule::Workers) {
