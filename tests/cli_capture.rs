@@ -261,6 +261,59 @@ fn capture_recovers_a_known_room_and_its_loop_delay() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
+/// A take that differs from the others is reported: the room's output is disconnected from capture's input
+/// as the second of two takes starts (`jack_disconnect`, from the outside like a patchbay), so that take
+/// records (nearly) silence: the mean is then half of take 1's response, and each take differs from it by
+/// that half, 0 dB: far above the -20 dB bound, a warning; the IR is still written.
+#[test]
+fn capture_warns_when_the_takes_differ() {
+    use std::io::{BufRead, BufReader};
+    let _serial = serial();
+    let Some(server) = jack_or_skip("capture_warns_when_the_takes_differ", PERIOD) else { return };
+    let dir = scratch("differ");
+    server.make_default();
+    let (room, _) = start_room(&known_room());
+    let ir_path = dir.join("ir.wav");
+    let mut child = partita(&server.name)
+        .args(["capture", "--host", "jack", "--connect-output", "room:in_1", "--connect-input", "room:out_1"])
+        .args(["--duration-s", "1", "--silence-s", "0.5", "--takes", "2", "--json", "-o"])
+        .arg(&ir_path)
+        .stderr(Stdio::piped())
+        .stdout(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut err = BufReader::new(child.stderr.take().unwrap());
+    let (mut log, mut line) = (String::new(), String::new());
+    while err.read_line(&mut line).unwrap_or(0) > 0 {
+        log.push_str(&line);
+        if line.starts_with("take 2 of 2") {
+            break;
+        }
+        line.clear();
+    }
+    let status = Command::new("jack_disconnect")
+        .args(["room:out_1", "partita-capture:in_1"])
+        .env("JACK_DEFAULT_SERVER", &server.name)
+        .env("JACK_NO_START_SERVER", "1")
+        .status()
+        .expect("jack_disconnect runs");
+    assert!(status.success());
+    let mut rest = String::new();
+    let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+    log.push_str(&rest);
+    let out = child.wait_with_output().unwrap();
+    drop(room);
+    eprintln!("{log}");
+    assert!(out.status.success(), "{log}");
+    assert!(log.contains("warning: the takes differ by up to"), "{log}");
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let d: Vec<f64> = v["take_difference_db"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+    // Take 2 silent from (nearly) its start: each take lies the mean itself away from the mean, 0 dB.
+    assert!(d.iter().all(|&x| x.abs() < 0.5), "{d:?}");
+    assert!(ir_path.exists());
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
 /// Ctrl-C mid-take: the command stops within a second (the output fades out over 20 ms, checked on the port
 /// in partita-device's tests/capture.rs), says that no complete take exists, writes nothing and exits 1.
 #[test]
