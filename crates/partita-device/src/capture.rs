@@ -14,7 +14,7 @@
 //! - The process callback copies the signal to the output port, clamped to a hard ceiling (the
 //!   signal's own peak level), and the input port into the recording; both buffers are allocated and
 //!   written before activation. It never allocates, locks or waits. No fade-in and no runaway mute
-//!   (the signal brings its own fade-in; a sweep is full-scale-free by construction): only the ceiling.
+//!   (a sweep brings its own fade-in, and its level is fixed before it starts): only the ceiling.
 //! - [`CaptureStream::request_stop`] (Ctrl-C) makes the callback fade the output out over
 //!   [`STOP_FADE_MS`] with a raised-cosine ramp, then play silence and stop recording.
 //! - A server that goes away, a sample-rate change (it would make the recording useless) or a callback
