@@ -100,10 +100,13 @@ fn capture_clamps_fades_out_on_stop_and_never_touches_the_heap() {
         assert!(e <= gain(w) + 1e-6 && e >= gain(w + 48) - 0.02, "window at {w}: {e} vs {}..{}", gain(w + 48), gain(w));
     }
     eprintln!("fade-out envelope per ms: {envelope:.3?}");
-    // Not a step: no sample-to-sample jump larger than the tone's own slope at the ceiling.
-    let max_step = out[start - 480..last + 2].windows(2).map(|w| (w[1] - w[0]).abs()).fold(0.0f32, f32::max);
-    let tone_step = 0.5 * 2.0 * std::f32::consts::PI * 1000.0 / RATE as f32;
-    assert!(max_step <= tone_step * 1.01, "largest step {max_step} vs the tone's {tone_step}");
+    // Not a step: no sample-to-sample jump in the fade larger than the clamped tone's own before it, plus
+    // what the gain's slope adds (at most the ceiling times pi / 2 / 960 per frame, 0.0004); a cut to silence
+    // from full level would jump by up to the ceiling, 0.25.
+    let max_step = |x: &[f32]| x.windows(2).map(|w| (w[1] - w[0]).abs()).fold(0.0f32, f32::max);
+    let (steady, fading) = (max_step(&out[start - 4800..start]), max_step(&out[start..last + 2]));
+    eprintln!("largest step: {fading} in the fade, {steady} before it");
+    assert!(fading <= steady + 0.0005, "largest step in the fade {fading}, before it {steady}");
 
     // The recording: up to the stop and its fade, the source's ramp at one offset (the source's first
     // frames arrive once it is connected).
