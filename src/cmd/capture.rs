@@ -73,6 +73,9 @@ pub struct CaptureArgs {
     /// Leave the ports unconnected (a patchbay connects them; the sweep starts at once).
     #[arg(long, conflicts_with_all = ["connect_output", "connect_input"])]
     no_connect: bool,
+    /// Ask SCHED_FIFO for the callback thread (needs the privilege, e.g. an audio group's rtprio limit).
+    #[arg(long)]
+    realtime: bool,
     /// Print the results and the analysis as JSON on stdout (everything else goes to stderr).
     #[arg(long)]
     json: bool,
@@ -107,6 +110,7 @@ pub fn run(args: CaptureArgs) -> CmdResult {
     let options = CaptureOptions {
         output: choice(&args.connect_output, args.output_channel),
         input: choice(&args.connect_input, args.input_channel),
+        realtime: args.realtime,
         ..CaptureOptions::default()
     };
     let client = JackCapture::open(&options)?;
@@ -191,6 +195,13 @@ pub fn run(args: CaptureArgs) -> CmdResult {
         std::thread::sleep(Duration::from_millis(10));
     }
     let capture = stream.finish()?;
+    if args.realtime {
+        match capture.stats.callback_priority {
+            Some(Ok(p)) => eprintln!("callback thread ran at SCHED_FIFO priority {p}"),
+            Some(Err(e)) => eprintln!("warning: --realtime: SCHED_FIFO was refused (OS error {e}); ran without it"),
+            None => {}
+        }
+    }
     let complete = match capture.stopped_at_frames {
         Some(at) => (at / take_frames).min(takes),
         None => capture.recording.len() / take_frames,
