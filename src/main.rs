@@ -35,6 +35,9 @@ enum Command {
     Sweep(cmd::sweep::SweepArgs),
     /// Recover an impulse response from a recording of a sweep written by `partita sweep`.
     Deconvolve(cmd::deconvolve::DeconvolveArgs),
+    /// Measure a room in one step: play the sweep and record the microphone through one JACK client, write the
+    /// impulse response and print its analysis (needs the `jack` feature).
+    Capture(cmd::capture::CaptureArgs),
     /// Room-acoustic parameters of an impulse response per octave band: EDT, T20, T30, C50, C80, D50, Ts.
     Analyze(cmd::analyze::AnalyzeArgs),
     /// List the audio hosts, their devices and supported configurations (needs the `live` feature).
@@ -53,6 +56,7 @@ fn main() -> ExitCode {
         Command::Devices(args) => cmd::devices::run(args),
         Command::Sweep(args) => cmd::sweep::run(args),
         Command::Deconvolve(args) => cmd::deconvolve::run(args),
+        Command::Capture(args) => cmd::capture::run(args),
         Command::Analyze(args) => cmd::analyze::run(args),
         Command::MakeDemoData(args) => cmd::demo_data::run(args),
     };

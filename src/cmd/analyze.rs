@@ -65,7 +65,8 @@ fn band_json(b: &BandAnalysis, fs: f64) -> Value {
     })
 }
 
-fn print_table(c: usize, a: &ChannelAnalysis) {
+/// Prints channel `c`'s analysis as the table `analyze` shows, with its notes.
+pub fn print_table(c: usize, a: &ChannelAnalysis) {
     println!("channel {c} ({} octave filters)", a.phase.name());
     println!(
         "  {:<10} {:>7} {:>7} {:>7} {:>7} {:>7} {:>6} {:>7} {:>6} {:>6}",
@@ -116,28 +117,42 @@ fn print_table(c: usize, a: &ChannelAnalysis) {
     );
 }
 
+/// Analyses every channel with the default options and `phase`; an error names `what` and the channel.
+pub fn analyze_channels(
+    channels: &[Vec<f32>],
+    fs: f64,
+    phase: FilterPhase,
+    what: &str,
+) -> Result<Vec<ChannelAnalysis>, String> {
+    let options = AnalysisOptions { phase, ..AnalysisOptions::default() };
+    channels
+        .iter()
+        .enumerate()
+        .map(|(c, x)| analyze(x, fs, &options).map_err(|e| format!("{what}: channel {c}: {e}")))
+        .collect()
+}
+
+/// The analyses as the `channels` array of `analyze --json`.
+pub fn channels_json(analyses: &[ChannelAnalysis], fs: f64) -> Value {
+    analyses
+        .iter()
+        .map(|a| {
+            json!({
+                "filter": a.phase.name(),
+                "broadband": band_json(&a.broadband, fs),
+                "bands": a.bands.iter().map(|b| band_json(b, fs)).collect::<Vec<_>>(),
+            })
+        })
+        .collect()
+}
+
 /// Runs `partita analyze`.
 pub fn run(args: AnalyzeArgs) -> CmdResult {
     let audio = read_wav(&args.ir)?;
     let fs = f64::from(audio.sample_rate_hz);
-    let options = AnalysisOptions { phase: args.filter, ..AnalysisOptions::default() };
-    let analyses: Vec<ChannelAnalysis> = audio
-        .channels
-        .iter()
-        .enumerate()
-        .map(|(c, x)| analyze(x, fs, &options).map_err(|e| format!("{}: channel {c}: {e}", args.ir.display())))
-        .collect::<Result<_, _>>()?;
+    let analyses = analyze_channels(&audio.channels, fs, args.filter, &args.ir.display().to_string())?;
     if args.json {
-        let channels: Vec<Value> = analyses
-            .iter()
-            .map(|a| {
-                json!({
-                    "filter": a.phase.name(),
-                    "broadband": band_json(&a.broadband, fs),
-                    "bands": a.bands.iter().map(|b| band_json(b, fs)).collect::<Vec<_>>(),
-                })
-            })
-            .collect();
+        let channels = channels_json(&analyses, fs);
         let out = json!({ "file": args.ir.display().to_string(), "sample_rate_hz": audio.sample_rate_hz, "channels": channels });
         println!("{}", serde_json::to_string_pretty(&out)?);
     } else {

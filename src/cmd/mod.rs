@@ -8,6 +8,8 @@ pub mod plan;
 pub mod render;
 pub mod sweep;
 
+#[cfg(feature = "jack")]
+pub mod capture;
 #[cfg(feature = "live")]
 pub mod devices;
 #[cfg(feature = "live")]
@@ -31,6 +33,24 @@ pub mod monitor {
     /// Fails with how to build with live audio.
     pub fn run(_: MonitorArgs) -> super::CmdResult {
         Err(super::NO_LIVE.into())
+    }
+}
+
+/// `partita capture` in a build without JACK: says how to get it.
+#[cfg(not(feature = "jack"))]
+pub mod capture {
+    /// Arguments of `partita capture` (accepted and ignored: JACK is not in this build).
+    #[derive(Debug, clap::Args)]
+    pub struct CaptureArgs {
+        #[arg(trailing_var_arg = true, allow_hyphen_values = true, hide = true)]
+        args: Vec<String>,
+    }
+
+    /// Fails with how to build with JACK.
+    pub fn run(_: CaptureArgs) -> super::CmdResult {
+        Err("this build has no JACK: `partita capture` needs it; rebuild with `cargo build --release --features jack` \
+             (needs libasound2-dev and libjack-jackd2-dev), or use `partita sweep` and `partita deconvolve`"
+            .into())
     }
 }
 

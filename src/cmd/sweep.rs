@@ -24,37 +24,72 @@ pub struct SweepArgs {
     /// Output WAV (32-bit float, mono). The sidecar goes beside it with the extension .json.
     #[arg(short = 'o', long = "output", value_name = "SWEEP.wav")]
     output: PathBuf,
-    /// exponential (Farina 2000, exactly --duration-s) or synchronized (Novak et al. 2015: duration adjusted so
-    /// that f1 L is whole, harmonic responses keep their phase).
-    #[arg(long, value_name = "KIND", default_value = "synchronized", value_parser = parse_kind)]
-    kind: SweepKind,
     /// Sample rate of the sweep (play it at this rate).
     #[arg(long, value_name = "HZ", default_value_t = 48_000)]
     rate: u32,
+    #[command(flatten)]
+    params: SweepParams,
+}
+
+/// The sweep's parameters and `--force`, shared by `sweep` and `capture` (which plays at the server's rate).
+#[derive(Debug, Args)]
+pub struct SweepParams {
+    /// exponential (Farina 2000, exactly --duration-s) or synchronized (Novak et al. 2015: duration adjusted so
+    /// that f1 L is whole, harmonic responses keep their phase).
+    #[arg(long, value_name = "KIND", default_value = "synchronized", value_parser = parse_kind)]
+    pub kind: SweepKind,
     /// Start frequency f1.
     #[arg(long, value_name = "HZ", default_value_t = 20.0)]
-    start_hz: f64,
+    pub start_hz: f64,
     /// End frequency f2 [default: 20 kHz, or 0.45 x the rate when lower].
     #[arg(long, value_name = "HZ")]
-    end_hz: Option<f64>,
+    pub end_hz: Option<f64>,
     /// Duration of the sweep itself.
     #[arg(long, value_name = "S", default_value_t = 10.0)]
-    duration_s: f64,
+    pub duration_s: f64,
     /// Raised-cosine fade-in.
     #[arg(long, value_name = "S", default_value_t = 0.1)]
-    fade_in_s: f64,
+    pub fade_in_s: f64,
     /// Raised-cosine fade-out.
     #[arg(long, value_name = "S", default_value_t = 0.01)]
-    fade_out_s: f64,
+    pub fade_out_s: f64,
     /// Peak level in dBFS. Above -6 dBFS only with --force.
     #[arg(long, value_name = "DB", default_value_t = DEFAULT_LEVEL_DBFS, allow_negative_numbers = true)]
-    level_dbfs: f64,
+    pub level_dbfs: f64,
     /// Silence after the sweep; at least the room's expected reverberation time.
     #[arg(long, value_name = "S", default_value_t = 3.0)]
-    silence_s: f64,
+    pub silence_s: f64,
     /// Allow a level above -6 dBFS.
     #[arg(long)]
-    force: bool,
+    pub force: bool,
+}
+
+impl SweepParams {
+    /// The sweep at `rate_hz`.
+    pub fn spec(&self, rate_hz: u32) -> SweepSpec {
+        let defaults = SweepSpec::new(self.kind, rate_hz);
+        SweepSpec {
+            start_hz: self.start_hz,
+            end_hz: self.end_hz.unwrap_or(defaults.end_hz),
+            duration_s: self.duration_s,
+            fade_in_s: self.fade_in_s,
+            fade_out_s: self.fade_out_s,
+            level_dbfs: self.level_dbfs,
+            silence_s: self.silence_s,
+            ..defaults
+        }
+    }
+}
+
+/// Refuses a level above -6 dBFS unless `force` (the cautions say why).
+pub fn check_level(level_dbfs: f64, force: bool) -> Result<(), String> {
+    if level_dbfs > MAX_UNFORCED_LEVEL_DBFS && !force {
+        return Err(format!(
+            "refusing a sweep at {level_dbfs} dBFS: levels above {MAX_UNFORCED_LEVEL_DBFS} dBFS need --force (read the \
+             cautions above; start low)"
+        ));
+    }
+    Ok(())
 }
 
 fn parse_kind(s: &str) -> Result<SweepKind, String> {
@@ -64,25 +99,8 @@ fn parse_kind(s: &str) -> Result<SweepKind, String> {
 /// Runs `partita sweep`.
 pub fn run(args: SweepArgs) -> CmdResult {
     println!("{CAUTIONS}\n");
-    if args.level_dbfs > MAX_UNFORCED_LEVEL_DBFS && !args.force {
-        return Err(format!(
-            "refusing a sweep at {} dBFS: levels above {MAX_UNFORCED_LEVEL_DBFS} dBFS need --force (read the \
-             cautions above; start low)",
-            args.level_dbfs
-        )
-        .into());
-    }
-    let defaults = SweepSpec::new(args.kind, args.rate);
-    let spec = SweepSpec {
-        start_hz: args.start_hz,
-        end_hz: args.end_hz.unwrap_or(defaults.end_hz),
-        duration_s: args.duration_s,
-        fade_in_s: args.fade_in_s,
-        fade_out_s: args.fade_out_s,
-        level_dbfs: args.level_dbfs,
-        silence_s: args.silence_s,
-        ..defaults
-    };
+    check_level(args.params.level_dbfs, args.params.force)?;
+    let spec = args.params.spec(args.rate);
     let samples = spec.generate()?;
     write_wav_atomic(&args.output, &[&samples[..]], spec.sample_rate_hz, SampleFormat::F32, Dither::OFF)?;
     let sidecar = SweepSidecar::new(&spec, &samples);

@@ -6,6 +6,9 @@
 //!   engine inside its process callback: no ring, no drift, an input-to-output latency that is exactly
 //!   the engine's plus the connected ports' (registered with JACK through a latency callback). This is
 //!   what `partita monitor --host jack` uses; see the `duplex` module's docs.
+//! - **Room measurement on JACK** (feature `jack`): `JackCapture`, one client that plays a prepared
+//!   signal and records an input in the same callback, so the loop delay is exact in frames; what
+//!   `partita capture` uses; see the `capture` module's docs.
 //! - **Other hosts, through cpal**: an input stream and an output stream (cpal has no duplex stream)
 //!   bridged by a `ringbuf` SPSC queue, the engine run in one of the two callbacks. Described below.
 //!
@@ -80,6 +83,8 @@
 #![deny(unsafe_code)]
 
 mod bridge;
+#[cfg(feature = "jack")]
+mod capture;
 mod channels;
 pub mod convert;
 pub mod drift;
@@ -94,6 +99,10 @@ mod timing;
 
 pub use bridge::{
     Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, PlaybackSide, MAX_ENGINE_CHANNELS,
+};
+#[cfg(feature = "jack")]
+pub use capture::{
+    Capture, CaptureInfo, CaptureOptions, CaptureStream, JackCapture, PortChoice, PortLatency, STOP_FADE_MS,
 };
 pub use channels::ChannelMap;
 pub use drift::{Correction, DriftMode, DriftOptions, DriftTracker, RateController};
