@@ -27,23 +27,17 @@
 use std::sync::atomic::Ordering::{Acquire, Relaxed, Release};
 use std::sync::atomic::{AtomicBool, AtomicU64};
 use std::sync::Arc;
-use std::time::{Duration, Instant};
+use std::time::Instant;
 
 use jack::{AudioIn, AudioOut, Client, ClientOptions, ClientStatus, Control, Port, PortFlags, ProcessScope};
 
 use crate::bridge::CallbackTimer;
+use crate::duplex::{off_thread_bounded, CLOSE_WAIT, STALL_AFTER, STALL_GRACE};
 use crate::error::{DeviceError, Direction};
 use crate::stats::{BridgeCells, Fault, Stats};
 
 /// Length of the fade-out after a stop request, ms.
 pub const STOP_FADE_MS: f64 = 20.0;
-
-/// A stream that makes no callback for this long, once running, is declared stalled.
-const STALL_AFTER: Duration = Duration::from_secs(1);
-/// Grace time after start before the watchdog looks.
-const STALL_GRACE: Duration = Duration::from_secs(2);
-/// How long closing the client may take before it is given up (a dead server may never answer).
-const CLOSE_WAIT: Duration = Duration::from_secs(1);
 
 /// What one of the capture client's ports connects to.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -519,22 +513,14 @@ impl Drop for CaptureStream {
     }
 }
 
-/// Deactivates and closes `client` on a thread of its own, waiting at most [`CLOSE_WAIT`]. Returns
-/// `None` on timeout (the thread then keeps the client: a dead server may never let go, and it is leaked
-/// rather than freed while JACK might still call back), else the process handler when the server handed
-/// it back.
+/// Deactivates and closes `client` on a thread of its own ([`off_thread_bounded`]). Returns `None` on
+/// timeout, else the process handler when the server handed it back.
 fn close_bounded(client: Option<jack::AsyncClient<Notifications, Process>>) -> Option<Option<Process>> {
     let client = client?;
-    let (tx, rx) = std::sync::mpsc::channel();
-    let spawned = std::thread::Builder::new().name("partita-jack-close".into()).spawn(move || {
-        let process = client.deactivate().ok().map(|(c, _, p)| {
+    off_thread_bounded(move || {
+        client.deactivate().ok().map(|(c, _, p)| {
             drop(c);
             p
-        });
-        let _ = tx.send(process);
-    });
-    if spawned.is_err() {
-        return None;
-    }
-    rx.recv_timeout(CLOSE_WAIT).ok()
+        })
+    })
 }

@@ -42,9 +42,9 @@ use crate::safety::SafetyOptions;
 use crate::stats::{BridgeCells, Fault, Peaks, Stats};
 
 /// A stream that makes no callback for this long, once running, is declared stalled.
-const STALL_AFTER: Duration = Duration::from_secs(1);
+pub(crate) const STALL_AFTER: Duration = Duration::from_secs(1);
 /// Grace time after start before the watchdog looks.
-const STALL_GRACE: Duration = Duration::from_secs(2);
+pub(crate) const STALL_GRACE: Duration = Duration::from_secs(2);
 
 /// How the duplex client is set up.
 #[derive(Debug, Clone)]
@@ -677,17 +677,12 @@ impl DuplexStream {
     fn close(&mut self) {
         let Some(client) = self.client.take() else { return };
         let latency = self.latency.take();
-        let (tx, rx) = std::sync::mpsc::channel();
-        let spawned = std::thread::Builder::new().name("partita-jack-close".into()).spawn(move || {
+        // On timeout the thread keeps the client and the latency context; both are then leaked with it,
+        // never freed while JACK might still call back.
+        let _ = off_thread_bounded(move || {
             drop(client);
             drop(latency);
-            let _ = tx.send(());
         });
-        if spawned.is_ok() {
-            // On timeout the thread keeps the client and the latency context (a dead server may never
-            // let go); both are then leaked with it, never freed while JACK might still call back.
-            let _ = rx.recv_timeout(Duration::from_secs(1));
-        }
         while self.from_audio.try_pop().is_some() {}
     }
 }
@@ -696,4 +691,22 @@ impl Drop for DuplexStream {
     fn drop(&mut self) {
         self.close();
     }
+}
+
+/// How long closing a JACK client may take before the caller goes on without it.
+pub(crate) const CLOSE_WAIT: Duration = Duration::from_secs(1);
+
+/// Runs `close` (deactivating and closing a JACK client) on a thread of its own and waits at most
+/// [`CLOSE_WAIT`]: a dead server may never let go of a client. Returns `None` on timeout, when the thread
+/// keeps whatever `close` owns (leaked rather than freed while JACK might still call back), or when no
+/// thread could be started (then `close` was dropped unrun, with what it owns).
+pub(crate) fn off_thread_bounded<T: Send + 'static>(close: impl FnOnce() -> T + Send + 'static) -> Option<T> {
+    let (tx, rx) = std::sync::mpsc::channel();
+    std::thread::Builder::new()
+        .name("partita-jack-close".into())
+        .spawn(move || {
+            let _ = tx.send(close());
+        })
+        .ok()?;
+    rx.recv_timeout(CLOSE_WAIT).ok()
 }
