@@ -58,6 +58,13 @@ impl std::error::Error for IrError {}
 pub enum PlanError {
     /// The engine block size was zero.
     BlockFramesZero,
+    /// A level list written as text (`--levels`) is not `NxP,NxP,...`.
+    LevelsText {
+        /// The level as written.
+        level: String,
+        /// What is wrong with it.
+        problem: &'static str,
+    },
     /// The IR length to plan for was zero.
     IrFramesZero,
     /// A level has no partitions.
@@ -112,6 +119,10 @@ impl fmt::Display for PlanError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::BlockFramesZero => write!(f, "block size is 0 frames; use at least 1"),
+            Self::LevelsText { level, problem } => write!(
+                f,
+                "level `{level}`: {problem}; write levels as block x partitions in IR order, e.g. 64x15,512x14"
+            ),
             Self::IrFramesZero => write!(f, "impulse response length is 0 frames; nothing to plan"),
             Self::NoPartitions { level } => write!(f, "level {level} has 0 partitions; give at least 1"),
             Self::LevelBlockNotMultiple { level, level_block_frames, block_frames } => write!(

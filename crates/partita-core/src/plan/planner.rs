@@ -354,6 +354,24 @@ impl Planner {
         Ok(plan)
     }
 
+    /// Reads a level list written as text, `NxP` (block frames x partitions) separated by commas in IR
+    /// order, e.g. `64x15,512x14,4096x14`, for [`custom`](Self::custom). Spaces around a level are
+    /// ignored. Allocates the list.
+    ///
+    /// # Errors
+    /// [`PlanError::LevelsText`] naming the first level that is not two unsigned integers joined by `x`.
+    pub fn parse_levels(text: &str) -> Result<Vec<(usize, usize)>, PlanError> {
+        text.split(',')
+            .map(|part| {
+                let bad = |problem| PlanError::LevelsText { level: part.trim().to_string(), problem };
+                let (n, p) = part.trim().split_once('x').ok_or_else(|| bad("needs the form NxP"))?;
+                let n = n.parse().map_err(|_| bad("the block size is not an unsigned integer"))?;
+                let p = p.parse().map_err(|_| bad("the partition count is not an unsigned integer"))?;
+                Ok((n, p))
+            })
+            .collect()
+    }
+
     /// A plan from the caller's levels, `(block_frames, partitions)` in IR order; offsets follow from the
     /// head and the sizes. Levels of the engine block are `sync`, others get the planner's schedule.
     ///
