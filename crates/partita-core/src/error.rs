@@ -108,6 +108,24 @@ pub enum PlanError {
         /// Taps in the IR.
         ir_frames: usize,
     },
+    /// The plan would cover more taps than [`Plan::MAX_COVERED_FRAMES`](crate::Plan::MAX_COVERED_FRAMES)
+    /// (or its sizes overflow).
+    TooLong {
+        /// Taps the plan or its IR would reach (saturated at `usize::MAX`).
+        frames: usize,
+        /// The limit.
+        limit_frames: usize,
+    },
+    /// The optimal planner's search grows with the IR's length in blocks; this IR has more blocks than
+    /// [`Planner::MAX_OPTIMAL_BLOCKS`](crate::Planner::MAX_OPTIMAL_BLOCKS).
+    TooManyBlocks {
+        /// Taps in the IR.
+        ir_frames: usize,
+        /// The engine block.
+        block_frames: usize,
+        /// The limit in blocks.
+        limit_blocks: usize,
+    },
     /// No layout satisfies the request (for example a latency budget below one block).
     Infeasible {
         /// What could not be met.
@@ -143,6 +161,17 @@ impl fmt::Display for PlanError {
             Self::TooShort { covered_frames, ir_frames } => {
                 write!(f, "plan covers {covered_frames} taps but the impulse response has {ir_frames}; add partitions")
             }
+            Self::TooLong { frames, limit_frames } => write!(
+                f,
+                "the plan would reach tap {frames}, over the limit of {limit_frames} taps; use a shorter impulse \
+                 response or fewer partitions"
+            ),
+            Self::TooManyBlocks { ir_frames, block_frames, limit_blocks } => write!(
+                f,
+                "an impulse response of {ir_frames} taps is more than {limit_blocks} blocks of {block_frames} \
+                 frames, too many for the optimal planner; use a block of at least {} frames or a uniform plan",
+                ir_frames.div_ceil(*limit_blocks)
+            ),
             Self::Infeasible { reason } => write!(f, "no plan fits: {reason}"),
         }
     }

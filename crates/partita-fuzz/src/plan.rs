@@ -4,7 +4,7 @@
 //!
 //! Contract: text that is not a level list is refused with [`PlanError::LevelsText`]; a refused plan gets a
 //! [`PlanError`] with a message; an accepted plan passes [`Plan::validate`], covers its IR and stays within
-//! [`MAX_COVERED_FRAMES`]; an engine built from it (a decaying-noise IR of the plan's length) answers
+//! [`Plan::MAX_COVERED_FRAMES`]; an engine built from it (a decaying-noise IR of the plan's length) answers
 //! an impulse with its IR, delayed by `latency_frames()`, within the repository's error bound, and its
 //! output is finite.
 
@@ -12,9 +12,6 @@ use partita_core::{Engine, EngineOptions, ImpulseResponse, Plan, PlanError, Plan
 
 use crate::input::Input;
 use crate::memory;
-
-/// The most frames an accepted plan may cover.
-pub const MAX_COVERED_FRAMES: usize = 1 << 25;
 
 /// Accepted plans up to this many covered frames (and level blocks up to [`RUN_MAX_LEVEL_FRAMES`]) are
 /// built into an engine and run; larger ones are only checked as data, to keep a run in milliseconds.
@@ -88,7 +85,7 @@ pub(crate) fn check_plan(plan: &Plan) {
     }
     let covered = plan.covered_frames();
     assert!(covered >= plan.ir_frames, "the plan covers {covered} of {} frames", plan.ir_frames);
-    assert!(covered <= MAX_COVERED_FRAMES, "an accepted plan covers {covered} frames");
+    assert!(covered <= Plan::MAX_COVERED_FRAMES, "an accepted plan covers {covered} frames");
     let largest = plan.levels.iter().map(|l| l.block_frames).max().unwrap_or(plan.block_frames);
     if covered <= RUN_MAX_COVERED_FRAMES && largest <= RUN_MAX_LEVEL_FRAMES && plan.block_frames <= largest {
         impulse_check(plan);
