@@ -62,13 +62,15 @@ pub fn load_ir(path: &Path, options: &IrOptions) -> Result<LoadedIr, IoError> {
     condition_ir(source, audio, options, path)
 }
 
-/// [`load_ir`] for WAV bytes from any reader (a file already open, bytes in memory); `name` is the path the
-/// errors name. Allocates.
+/// [`load_ir`] for WAV bytes from any reader (a file already open, bytes in memory), the whole content from
+/// position 0; `name` is the path the errors name. Allocates.
 ///
 /// # Errors
 /// As [`load_ir`].
 pub fn load_ir_from<R: Read + Seek>(mut reader: R, name: &Path, options: &IrOptions) -> Result<LoadedIr, IoError> {
-    let len = reader.seek(SeekFrom::End(0)).map_err(|source| IoError::Read { path: name.to_path_buf(), source })?;
+    let read_err = |source| IoError::Read { path: name.to_path_buf(), source };
+    let len = reader.seek(SeekFrom::End(0)).map_err(read_err)?;
+    reader.seek(SeekFrom::Start(0)).map_err(read_err)?;
     let info = parse_header(&mut reader, len, name)?;
     let (source, audio) =
         decode_checked(reader, info, name, MAX_DECODED_BYTES, |info| check_length(info, options, name))?;

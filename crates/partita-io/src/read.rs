@@ -59,7 +59,8 @@ pub fn read_wav_limited(path: &Path, max_decoded_bytes: u64) -> Result<Audio, Io
 }
 
 /// [`read_wav_limited`] for WAV bytes from any reader, e.g. a file already open or bytes in memory (a
-/// `std::io::Cursor`); `name` is the path the errors name. Allocates the samples.
+/// `std::io::Cursor`): the WAV is the reader's whole content, from position 0 to its end; `name` is the path the
+/// errors name. Allocates the samples.
 ///
 /// Memory: besides the decoded samples (at most 4 bytes per byte of the data chunk, for 8-bit PCM, and never
 /// more than `max_decoded_bytes`) reading takes one read buffer of at most 64 KiB plus one frame, and one
@@ -69,7 +70,9 @@ pub fn read_wav_limited(path: &Path, max_decoded_bytes: u64) -> Result<Audio, Io
 /// # Errors
 /// As [`read_wav_limited`], naming `name`.
 pub fn read_wav_from<R: Read + Seek>(mut reader: R, name: &Path, max_decoded_bytes: u64) -> Result<Audio, IoError> {
-    let len = reader.seek(SeekFrom::End(0)).map_err(|source| IoError::Read { path: name.to_path_buf(), source })?;
+    let read_err = |source| IoError::Read { path: name.to_path_buf(), source };
+    let len = reader.seek(SeekFrom::End(0)).map_err(read_err)?;
+    reader.seek(SeekFrom::Start(0)).map_err(read_err)?;
     let info = parse_header(&mut reader, len, name)?;
     decode_checked(reader, info, name, max_decoded_bytes, |_| Ok(())).map(|(_, audio)| audio)
 }
