@@ -194,6 +194,15 @@ pub enum RoutingError {
     },
     /// A matrix needs at least one input and one output.
     EmptyMatrix,
+    /// A matrix has more inputs or outputs than [`Routing::MAX_SIDE`](crate::Routing::MAX_SIDE).
+    MatrixTooLarge {
+        /// Its inputs.
+        inputs: usize,
+        /// Its outputs.
+        outputs: usize,
+        /// The limit for each.
+        max_side: usize,
+    },
     /// No routing was given and none follows from the IR's channel count (only 1, 2 and 4 have a default).
     NoDefault {
         /// IR channels.
@@ -217,6 +226,11 @@ impl fmt::Display for RoutingError {
                 write!(f, "{routing} routing needs an impulse response with {expected} channel(s), got {got}")
             }
             Self::EmptyMatrix => write!(f, "a routing matrix needs at least 1 input and 1 output"),
+            Self::MatrixTooLarge { inputs, outputs, max_side } => write!(
+                f,
+                "a routing matrix of {inputs} inputs and {outputs} outputs is larger than the {max_side} of each \
+                 a routing may have"
+            ),
             Self::NoDefault { ir_channels } => write!(
                 f,
                 "no default routing for a {ir_channels}-channel impulse response (1 is mono, 2 stereo, 4 true \
@@ -246,7 +260,7 @@ impl fmt::Display for RoutingParseError {
         write!(
             f,
             "unknown routing \"{}\"; use mono, mono-to-stereo, stereo, true-stereo or matrix:MxN (M inputs, N \
-             outputs, both at least 1)",
+             outputs, both from 1 to 1024)",
             self.given
         )
     }

@@ -3,16 +3,13 @@
 //!
 //! Contract: text is refused with a message that names what was given and lists the accepted forms, or it
 //! parses to a routing whose canonical spelling parses back to itself, whose channel counts stay within
-//! [`MAX_MATRIX_SIDE`] and multiply without overflow; resolving it gives exactly one path per IR
+//! [`Routing::MAX_SIDE`] and multiply without overflow; resolving it gives exactly one path per IR
 //! channel with indices in range, and [`Routing::choose`] returns only routings that accept the IR.
 
 use partita_core::{Routing, Schedule};
 use partita_io::Normalize;
 
 use crate::input::Input;
-
-/// The most inputs or outputs a routing may have.
-pub const MAX_MATRIX_SIDE: usize = 1 << 10;
 
 /// Routing text on `data`: two channel-count bytes, then the text.
 ///
@@ -45,8 +42,8 @@ pub fn routing_text(data: &[u8]) {
     let canonical = routing.to_string();
     assert_eq!(canonical.parse::<Routing>().ok(), Some(routing), "{canonical} does not parse back");
     let (inputs, outputs) = (routing.inputs(), routing.outputs());
-    assert!((1..=MAX_MATRIX_SIDE).contains(&inputs), "{inputs} inputs accepted from {text:?}");
-    assert!((1..=MAX_MATRIX_SIDE).contains(&outputs), "{outputs} outputs accepted from {text:?}");
+    assert!((1..=Routing::MAX_SIDE).contains(&inputs), "{inputs} inputs accepted from {text:?}");
+    assert!((1..=Routing::MAX_SIDE).contains(&outputs), "{outputs} outputs accepted from {text:?}");
     let needed = routing.ir_channels();
     let map = routing.resolve(needed).unwrap_or_else(|e| panic!("{routing} refuses its own IR channel count: {e}"));
     assert_eq!((map.inputs, map.outputs), (inputs, outputs));
