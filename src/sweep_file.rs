@@ -228,6 +228,17 @@ impl SweepSidecar {
     pub fn from_json_verified(bytes: &[u8], path: &Path) -> Result<(Self, SweepSpec, Vec<f32>), SidecarError> {
         let (sidecar, spec) = Self::from_json(bytes, path)?;
         let samples = spec.generate().map_err(|e| SidecarError::Invalid { path: path.into(), error: e.to_string() })?;
+        if samples.len() != sidecar.frames {
+            return Err(SidecarError::Invalid {
+                path: path.into(),
+                error: format!(
+                    "the sidecar says {} frames but its parameters make {}; the file was edited. Use the sidecar \
+                     written with the sweep you played",
+                    sidecar.frames,
+                    samples.len()
+                ),
+            });
+        }
         let regenerated = hash_field(&samples);
         if regenerated != sidecar.hash {
             return Err(SidecarError::HashMismatch { path: path.into(), stored: sidecar.hash, regenerated });

@@ -3,7 +3,7 @@
 //! [`SweepSidecar::from_json_verified`] (regenerate, hash, compare).
 //!
 //! Contract: a clear error naming the file, or parameters that make a valid sweep of at most
-//! [`MAX_SWEEP_FRAMES`] frames (so a sidecar cannot make `deconvolve` allocate without bound); a verified
+//! [`MAX_SWEEP_FRAMES`](partita_room::sweep::MAX_SWEEP_FRAMES) frames (so a sidecar cannot make `deconvolve` allocate without bound); a verified
 //! sidecar's samples are finite, within [-1, 1], and as many as the sidecar says.
 
 use std::path::Path;
@@ -12,8 +12,6 @@ use partita::sweep_file::{SidecarError, SweepSidecar};
 
 use crate::check_message;
 
-/// The most frames (sweep and silence) an accepted sidecar may describe.
-pub const MAX_SWEEP_FRAMES: usize = 1 << 27;
 /// Sweeps up to this many frames are generated and hashed here.
 pub const RUN_MAX_FRAMES: usize = 1 << 16;
 
@@ -33,7 +31,7 @@ pub fn sweep_sidecar(data: &[u8]) {
         panic!("an accepted sidecar's sweep does not validate: {e}");
     }
     let frames = spec.sweep_frames().saturating_add(spec.silence_frames());
-    assert!(frames <= MAX_SWEEP_FRAMES, "an accepted sidecar describes {frames} frames");
+    assert!(frames as u64 <= partita_room::sweep::MAX_SWEEP_FRAMES, "an accepted sidecar describes {frames} frames");
     if frames > RUN_MAX_FRAMES {
         return;
     }
