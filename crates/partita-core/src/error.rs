@@ -285,6 +285,16 @@ pub enum EngineError {
     },
     /// `max_host_frames` was zero.
     MaxHostFramesZero,
+    /// A size option is larger than the engine takes ([`EngineOptions::MAX_HOST_FRAMES`](crate::EngineOptions::MAX_HOST_FRAMES),
+    /// [`EngineOptions::MAX_PREDELAY_FRAMES`](crate::EngineOptions::MAX_PREDELAY_FRAMES)).
+    OptionTooLarge {
+        /// The option's name.
+        what: &'static str,
+        /// Its value.
+        frames: usize,
+        /// The limit.
+        limit_frames: usize,
+    },
     /// A worker thread could not be started.
     Spawn(String),
     /// The IR could not be prepared.
@@ -312,6 +322,9 @@ impl fmt::Display for EngineError {
                  plan for at least {ir_frames} frames"
             ),
             Self::MaxHostFramesZero => write!(f, "max_host_frames is 0; hosts call with at least 1 frame"),
+            Self::OptionTooLarge { what, frames, limit_frames } => {
+                write!(f, "{what} is {frames} frames, over the limit of {limit_frames}; ask for fewer frames")
+            }
             Self::Spawn(e) => write!(f, "could not start a worker thread: {e}"),
             Self::Control(e) => write!(f, "{e}"),
             Self::Mix(e) => write!(f, "invalid mix: {e}"),
