@@ -221,7 +221,14 @@ fn step(input: &mut Input<'_>, s: &mut State) {
             if code == PARTITA_OK {
                 let i = info.read();
                 assert_eq!(i.struct_size, size, "plan_info changed struct_size");
-                assert!(i.block_frames > 0 && i.covered_frames > 0 && i.levels > 0);
+                assert!(i.block_frames > 0 && i.covered_frames > 0);
+                // A zero-latency plan for an IR no longer than one block is its direct-form head alone.
+                assert!(
+                    i.levels > 0 || i.latency_frames == 0,
+                    "a plan without levels and latency {}",
+                    i.latency_frames
+                );
+                assert!(i.worker_levels + i.sliced_levels <= i.levels);
                 assert!(i.predicted_load_pct.is_finite() && i.predicted_heaviest_call_pct.is_finite());
             }
         }
