@@ -18,6 +18,9 @@ use crate::memory;
 pub const RUN_MAX_COVERED_FRAMES: usize = 1 << 14;
 /// See [`RUN_MAX_COVERED_FRAMES`].
 pub const RUN_MAX_LEVEL_FRAMES: usize = 1 << 12;
+/// And the run's multiply-accumulates, about (partitions in all levels) x (frames run), at most this: a
+/// plan of 9231 one-frame partitions is valid but takes seconds to run here.
+pub const RUN_MAX_MACS: usize = 1 << 22;
 
 /// Plan parsing and validation on `data`: the first byte chooses `--levels` text (even) or plan JSON (odd).
 ///
@@ -87,7 +90,12 @@ pub(crate) fn check_plan(plan: &Plan) {
     assert!(covered >= plan.ir_frames, "the plan covers {covered} of {} frames", plan.ir_frames);
     assert!(covered <= Plan::MAX_COVERED_FRAMES, "an accepted plan covers {covered} frames");
     let largest = plan.levels.iter().map(|l| l.block_frames).max().unwrap_or(plan.block_frames);
-    if covered <= RUN_MAX_COVERED_FRAMES && largest <= RUN_MAX_LEVEL_FRAMES && plan.block_frames <= largest {
+    let macs = plan.levels.iter().map(|l| l.partitions).sum::<usize>().saturating_mul(covered + 2 * largest);
+    if covered <= RUN_MAX_COVERED_FRAMES
+        && largest <= RUN_MAX_LEVEL_FRAMES
+        && plan.block_frames <= largest
+        && macs <= RUN_MAX_MACS
+    {
         impulse_check(plan);
     }
 }
