@@ -4,7 +4,8 @@
 //! What the contract (`crates/partita-ffi/src/lib.rs`) allows, and so what this target does: any pointer
 //! may be NULL; a `struct_size` may be any value as long as the memory behind the struct is at least that
 //! many bytes (here: a buffer of max(struct_size, sizeof) bytes, struct_size up to 1 KiB); buffers hold
-//! the lengths passed (here: frames up to [`MAX_CALL_FRAMES`], IR lengths up to [`MAX_IR_FRAMES`]);
+//! the lengths passed (here: frames up to [`MAX_CALL_FRAMES`], IR lengths up to [`MAX_IR_FRAMES`]); plans
+//! are made for at most [`MAX_PLANNED_BLOCKS`] blocks or for lengths past the limits (`plannable`);
 //! destroying twice through the same variable is allowed (`PARTITA_ERR_NULL`), so is destroying an
 //! engine before or after its control and using the control after its engine is gone; a prepared IR is
 //! swapped only into the control that made it. Undefined behaviour the target never does: using a copy of
@@ -368,11 +369,12 @@ fn plan_create(input: &mut Input<'_>, s: &mut State) {
         1 => u64::from(input.size_u32()),
         _ => u64::from(input.u8()) << (input.u8() % 16),
     };
+    let block_frames = input.size_u32();
     let options = PartitaPlanOptions {
         struct_size: size,
         sample_rate_hz: input.pick(&[0, 48_000, 44_100, 1, 384_000]),
-        ir_frames,
-        block_frames: input.size_u32(),
+        ir_frames: plannable(ir_frames, block_frames),
+        block_frames,
         latency_budget_frames: input.size_u32(),
         zero_latency: i32::from(input.u8() % 2),
         schedule: i32::from(input.u8() % 6) - 1,
@@ -397,6 +399,23 @@ fn plan_create(input: &mut Input<'_>, s: &mut State) {
     if let Some(mut old) = s.plan.replace(out) {
         // SAFETY: the plan this one replaces, live.
         assert_eq!(unsafe { partita_plan_destroy(&mut old) }, PARTITA_OK);
+    }
+}
+
+/// The most engine blocks of IR this target plans (see `plannable`).
+pub const MAX_PLANNED_BLOCKS: u64 = 1 << 12;
+
+/// An IR length to plan: lengths past the planner's limits stay (they must be refused quickly), lengths
+/// within them are folded to at most [`MAX_PLANNED_BLOCKS`] blocks. An automatic plan of a long IR is
+/// allowed to take seconds (the ABI documents it), more under AddressSanitizer: a timeout here, not a
+/// defect.
+fn plannable(ir_frames: u64, block_frames: u32) -> u64 {
+    let cap = MAX_PLANNED_BLOCKS * u64::from(block_frames.max(1));
+    let limit = partita_core::Plan::MAX_COVERED_FRAMES as u64;
+    if ir_frames > cap && ir_frames <= limit {
+        ir_frames % cap
+    } else {
+        ir_frames
     }
 }
 
