@@ -205,10 +205,40 @@ impl SweepSidecar {
     /// Every [`SidecarError`].
     pub fn read_verified(path: &Path) -> Result<(Self, SweepSpec, Vec<f32>), SidecarError> {
         let bytes = std::fs::read(path).map_err(|error| SidecarError::Io { path: path.into(), error })?;
-        let sidecar: Self = serde_json::from_slice(&bytes)
+        Self::from_json_verified(&bytes, path)
+    }
+
+    /// Parses sidecar bytes and checks its parameters, without generating the sweep; `path` is the file the
+    /// errors name.
+    ///
+    /// # Errors
+    /// [`SidecarError::Parse`], [`SidecarError::Invalid`].
+    pub fn from_json(bytes: &[u8], path: &Path) -> Result<(Self, SweepSpec), SidecarError> {
+        let sidecar: Self = serde_json::from_slice(bytes)
             .map_err(|e| SidecarError::Parse { path: path.into(), error: e.to_string() })?;
         let spec = sidecar.spec().map_err(|error| SidecarError::Invalid { path: path.into(), error })?;
+        Ok((sidecar, spec))
+    }
+
+    /// [`read_verified`](Self::read_verified) for sidecar bytes already read; `path` is the file the errors
+    /// name. Allocates the sweep.
+    ///
+    /// # Errors
+    /// [`SidecarError::Parse`], [`SidecarError::Invalid`], [`SidecarError::HashMismatch`].
+    pub fn from_json_verified(bytes: &[u8], path: &Path) -> Result<(Self, SweepSpec, Vec<f32>), SidecarError> {
+        let (sidecar, spec) = Self::from_json(bytes, path)?;
         let samples = spec.generate().map_err(|e| SidecarError::Invalid { path: path.into(), error: e.to_string() })?;
+        if samples.len() != sidecar.frames {
+            return Err(SidecarError::Invalid {
+                path: path.into(),
+                error: format!(
+                    "the sidecar says {} frames but its parameters make {}; the file was edited. Use the sidecar \
+                     written with the sweep you played",
+                    sidecar.frames,
+                    samples.len()
+                ),
+            });
+        }
         let regenerated = hash_field(&samples);
         if regenerated != sidecar.hash {
             return Err(SidecarError::HashMismatch { path: path.into(), stored: sidecar.hash, regenerated });

@@ -88,17 +88,6 @@ pub struct PlanArgs {
     json: bool,
 }
 
-fn parse_levels(s: &str) -> Result<Vec<(usize, usize)>, String> {
-    s.split(',')
-        .map(|part| {
-            let (n, p) = part.trim().split_once('x').ok_or_else(|| format!("level `{part}` needs the form NxP"))?;
-            let n = n.parse().map_err(|_| format!("bad block size in level `{part}`"))?;
-            let p = p.parse().map_err(|_| format!("bad partition count in level `{part}`"))?;
-            Ok((n, p))
-        })
-        .collect()
-}
-
 /// Runs `partita plan`.
 pub fn run(args: PlanArgs) -> CmdResult {
     let (ir_frames, ir_channels, rate) = match (&args.ir, args.ir_seconds) {
@@ -183,7 +172,7 @@ pub fn run(args: PlanArgs) -> CmdResult {
         let (plan, why) = planner.plan_for_latency(budget, ir_frames)?;
         (plan, Some(why))
     } else if let Some(levels) = &args.levels {
-        (planner.custom(&parse_levels(levels)?, ir_frames)?, None)
+        (planner.custom(&Planner::parse_levels(levels)?, ir_frames)?, None)
     } else {
         (planner.plan(ir_frames)?, None)
     };

@@ -58,6 +58,13 @@ impl std::error::Error for IrError {}
 pub enum PlanError {
     /// The engine block size was zero.
     BlockFramesZero,
+    /// A level list written as text (`--levels`) is not `NxP,NxP,...`.
+    LevelsText {
+        /// The level as written.
+        level: String,
+        /// What is wrong with it.
+        problem: &'static str,
+    },
     /// The IR length to plan for was zero.
     IrFramesZero,
     /// A level has no partitions.
@@ -101,6 +108,24 @@ pub enum PlanError {
         /// Taps in the IR.
         ir_frames: usize,
     },
+    /// The plan would cover more taps than [`Plan::MAX_COVERED_FRAMES`](crate::Plan::MAX_COVERED_FRAMES)
+    /// (or its sizes overflow).
+    TooLong {
+        /// Taps the plan or its IR would reach (saturated at `usize::MAX`).
+        frames: usize,
+        /// The limit.
+        limit_frames: usize,
+    },
+    /// The optimal planner's search grows with the IR's length in blocks; this IR has more blocks than
+    /// [`Planner::MAX_OPTIMAL_BLOCKS`](crate::Planner::MAX_OPTIMAL_BLOCKS).
+    TooManyBlocks {
+        /// Taps in the IR.
+        ir_frames: usize,
+        /// The engine block.
+        block_frames: usize,
+        /// The limit in blocks.
+        limit_blocks: usize,
+    },
     /// No layout satisfies the request (for example a latency budget below one block).
     Infeasible {
         /// What could not be met.
@@ -112,6 +137,10 @@ impl fmt::Display for PlanError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::BlockFramesZero => write!(f, "block size is 0 frames; use at least 1"),
+            Self::LevelsText { level, problem } => write!(
+                f,
+                "level `{level}`: {problem}; write levels as block x partitions in IR order, e.g. 64x15,512x14"
+            ),
             Self::IrFramesZero => write!(f, "impulse response length is 0 frames; nothing to plan"),
             Self::NoPartitions { level } => write!(f, "level {level} has 0 partitions; give at least 1"),
             Self::LevelBlockNotMultiple { level, level_block_frames, block_frames } => write!(
@@ -132,6 +161,17 @@ impl fmt::Display for PlanError {
             Self::TooShort { covered_frames, ir_frames } => {
                 write!(f, "plan covers {covered_frames} taps but the impulse response has {ir_frames}; add partitions")
             }
+            Self::TooLong { frames, limit_frames } => write!(
+                f,
+                "the plan would reach tap {frames}, over the limit of {limit_frames} taps; use a shorter impulse \
+                 response or fewer partitions"
+            ),
+            Self::TooManyBlocks { ir_frames, block_frames, limit_blocks } => write!(
+                f,
+                "an impulse response of {ir_frames} taps is more than {limit_blocks} blocks of {block_frames} \
+                 frames, too many for the optimal planner; use a block of at least {} frames or a uniform plan",
+                ir_frames.div_ceil(*limit_blocks)
+            ),
             Self::Infeasible { reason } => write!(f, "no plan fits: {reason}"),
         }
     }
@@ -154,6 +194,15 @@ pub enum RoutingError {
     },
     /// A matrix needs at least one input and one output.
     EmptyMatrix,
+    /// A matrix has more inputs or outputs than [`Routing::MAX_SIDE`](crate::Routing::MAX_SIDE).
+    MatrixTooLarge {
+        /// Its inputs.
+        inputs: usize,
+        /// Its outputs.
+        outputs: usize,
+        /// The limit for each.
+        max_side: usize,
+    },
     /// No routing was given and none follows from the IR's channel count (only 1, 2 and 4 have a default).
     NoDefault {
         /// IR channels.
@@ -177,6 +226,11 @@ impl fmt::Display for RoutingError {
                 write!(f, "{routing} routing needs an impulse response with {expected} channel(s), got {got}")
             }
             Self::EmptyMatrix => write!(f, "a routing matrix needs at least 1 input and 1 output"),
+            Self::MatrixTooLarge { inputs, outputs, max_side } => write!(
+                f,
+                "a routing matrix of {inputs} inputs and {outputs} outputs is larger than the {max_side} of each \
+                 a routing may have"
+            ),
             Self::NoDefault { ir_channels } => write!(
                 f,
                 "no default routing for a {ir_channels}-channel impulse response (1 is mono, 2 stereo, 4 true \
@@ -206,7 +260,7 @@ impl fmt::Display for RoutingParseError {
         write!(
             f,
             "unknown routing \"{}\"; use mono, mono-to-stereo, stereo, true-stereo or matrix:MxN (M inputs, N \
-             outputs, both at least 1)",
+             outputs, both from 1 to 1024)",
             self.given
         )
     }
@@ -231,6 +285,16 @@ pub enum EngineError {
     },
     /// `max_host_frames` was zero.
     MaxHostFramesZero,
+    /// A size option is larger than the engine takes ([`EngineOptions::MAX_HOST_FRAMES`](crate::EngineOptions::MAX_HOST_FRAMES),
+    /// [`EngineOptions::MAX_PREDELAY_FRAMES`](crate::EngineOptions::MAX_PREDELAY_FRAMES)).
+    OptionTooLarge {
+        /// The option's name.
+        what: &'static str,
+        /// Its value.
+        frames: usize,
+        /// The limit.
+        limit_frames: usize,
+    },
     /// A worker thread could not be started.
     Spawn(String),
     /// The IR could not be prepared.
@@ -258,6 +322,9 @@ impl fmt::Display for EngineError {
                  plan for at least {ir_frames} frames"
             ),
             Self::MaxHostFramesZero => write!(f, "max_host_frames is 0; hosts call with at least 1 frame"),
+            Self::OptionTooLarge { what, frames, limit_frames } => {
+                write!(f, "{what} is {frames} frames, over the limit of {limit_frames}; ask for fewer frames")
+            }
             Self::Spawn(e) => write!(f, "could not start a worker thread: {e}"),
             Self::Control(e) => write!(f, "{e}"),
             Self::Mix(e) => write!(f, "invalid mix: {e}"),

@@ -69,6 +69,11 @@ pub struct RouteMap {
 }
 
 impl Routing {
+    /// The most inputs, and the most outputs, a routing may have: 1024 (a matrix of them has a million IR
+    /// channels and paths). Parsing and [`resolve`](Self::resolve) refuse larger matrices, so the channel
+    /// counts of any accepted routing multiply without overflow.
+    pub const MAX_SIDE: usize = 1024;
+
     /// The routing an IR channel count means when none is given: 1 mono, 2 stereo, 4 true stereo; `None` for
     /// any other count (give a matrix).
     pub fn for_ir_channels(ir_channels: usize) -> Option<Self> {
@@ -87,7 +92,7 @@ impl Routing {
             Self::Mono => 1,
             Self::MonoToStereo | Self::Stereo => 2,
             Self::TrueStereo => 4,
-            Self::Matrix { inputs, outputs } => inputs * outputs,
+            Self::Matrix { inputs, outputs } => inputs.saturating_mul(outputs),
         }
     }
 
@@ -96,7 +101,11 @@ impl Routing {
     pub fn accepts_ir_channels(&self, ir_channels: usize) -> bool {
         match *self {
             Self::Stereo => ir_channels == 1 || ir_channels == 2,
-            Self::Matrix { inputs, outputs } => inputs > 0 && outputs > 0 && ir_channels == inputs * outputs,
+            Self::Matrix { inputs, outputs } => {
+                (1..=Self::MAX_SIDE).contains(&inputs)
+                    && (1..=Self::MAX_SIDE).contains(&outputs)
+                    && ir_channels == inputs * outputs
+            }
             _ => ir_channels == self.ir_channels(),
         }
     }
@@ -195,6 +204,9 @@ impl Routing {
                 if inputs == 0 || outputs == 0 {
                     return Err(RoutingError::EmptyMatrix);
                 }
+                if inputs > Self::MAX_SIDE || outputs > Self::MAX_SIDE {
+                    return Err(RoutingError::MatrixTooLarge { inputs, outputs, max_side: Self::MAX_SIDE });
+                }
                 if ir_channels != inputs * outputs {
                     return Err(RoutingError::ChannelCount {
                         routing: self.to_string(),
@@ -227,7 +239,7 @@ impl FromStr for Routing {
     type Err = RoutingParseError;
 
     /// Parses `mono`, `mono-to-stereo`, `stereo`, `true-stereo` (or `truestereo`) or `matrix:MxN` with M and N
-    /// at least 1, in any case, surrounding whitespace ignored.
+    /// from 1 to [`Routing::MAX_SIDE`], in any case, surrounding whitespace ignored.
     fn from_str(s: &str) -> Result<Self, Self::Err> {
         let err = || RoutingParseError { given: s.to_string() };
         match s.trim().to_ascii_lowercase().as_str() {
@@ -240,7 +252,7 @@ impl FromStr for Routing {
                 let (m, n) = dims.split_once('x').ok_or_else(err)?;
                 let inputs: usize = m.trim().parse().map_err(|_| err())?;
                 let outputs: usize = n.trim().parse().map_err(|_| err())?;
-                if inputs == 0 || outputs == 0 {
+                if !(1..=Self::MAX_SIDE).contains(&inputs) || !(1..=Self::MAX_SIDE).contains(&outputs) {
                     return Err(err());
                 }
                 Ok(Self::Matrix { inputs, outputs })
@@ -300,6 +312,24 @@ impl RouteMap {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn matrices_past_the_limit_are_refused() {
+        // Found by fuzzing (fuzz/regressions/routing_text): "matrix:3333333333x3" was accepted, and a
+        // larger one overflowed the channel product or made resolve allocate without bound.
+        let side = Routing::MAX_SIDE;
+        assert_eq!(format!("matrix:{side}x1").parse::<Routing>(), Ok(Routing::Matrix { inputs: side, outputs: 1 }));
+        for text in
+            [format!("matrix:{}x1", side + 1), "matrix:3333333333 x 3".into(), "matrix:99999999999x99999999999".into()]
+        {
+            let err = text.parse::<Routing>().unwrap_err();
+            assert!(err.to_string().contains("both from 1 to 1024"), "{err}");
+        }
+        let huge = Routing::Matrix { inputs: usize::MAX, outputs: 3 };
+        assert_eq!(huge.ir_channels(), usize::MAX);
+        assert!(!huge.accepts_ir_channels(usize::MAX));
+        assert!(matches!(huge.resolve(usize::MAX), Err(RoutingError::MatrixTooLarge { max_side: 1024, .. })));
+    }
 
     #[test]
     fn true_stereo_order_is_input_major() {

@@ -2,7 +2,7 @@
 
 mod support;
 
-use partita_core::{Engine, ImpulseResponse, IrError, Plan, Routing};
+use partita_core::{Engine, EngineError, EngineOptions, ImpulseResponse, IrError, Plan, Routing};
 use support::*;
 
 /// IR lengths for block `b`: 1, B - 1, B, B + 1 and a prime near 2.5 B.
@@ -223,6 +223,26 @@ fn zero_tap_ir_is_refused_clearly() {
         IrError::UnequalLengths { channel: 1, .. }
     ));
     assert_eq!(ImpulseResponse::new(vec![vec![1.0]], 0).unwrap_err(), IrError::SampleRateZero);
+}
+
+/// The C ABI passes u32 sizes straight through (its fuzz target reaches them): a max_host_frames of 4 billion
+/// would make the engine (and the ABI's scratch)
+/// allocate without bound; sizes past the documented limits are refused instead.
+#[test]
+fn oversized_options_are_refused_before_allocating() {
+    let ir = random_ir(1, 50, 1);
+    let plan = Plan::uniform(16, 50).unwrap();
+    let build = |options| Engine::with_options(&plan, &ir, Routing::Mono, options);
+    let max = EngineOptions::MAX_HOST_FRAMES;
+    assert!(build(EngineOptions::new(max)).is_ok());
+    let err = build(EngineOptions::new(u32::MAX as usize)).unwrap_err();
+    assert!(
+        matches!(err, EngineError::OptionTooLarge { what: "max_host_frames", limit_frames, .. } if limit_frames == max)
+    );
+    assert!(err.to_string().contains("ask for fewer frames"), "{err}");
+    let predelay =
+        EngineOptions { max_predelay_frames: EngineOptions::MAX_PREDELAY_FRAMES + 1, ..EngineOptions::new(16) };
+    assert!(matches!(build(predelay), Err(EngineError::OptionTooLarge { what: "max_predelay_frames", .. })));
 }
 
 #[test]

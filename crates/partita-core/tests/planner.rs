@@ -1,7 +1,7 @@
 //! The optimal planner against exhaustive search, the uniform plan and the doubling plan.
 
 use partita_core::{
-    CostModel, Level, MachineCosts, Plan, PlanMode, Planner, Schedule, Shape, DEFAULT_HEADROOM_PCT,
+    CostModel, Level, MachineCosts, Plan, PlanError, PlanMode, Planner, Schedule, Shape, DEFAULT_HEADROOM_PCT,
     WORKER_SLACK_SECONDS,
 };
 
@@ -451,4 +451,29 @@ fn latency_budget_under_a_fixed_schedule_takes_the_lightest_heaviest_call() {
             worst(c)
         );
     }
+}
+
+/// Found by fuzzing (fuzz/regressions/plan): level text whose sizes overflow, and IR lengths the planner's
+/// search cannot hold, are refused with a `PlanError` rather than a panic or an allocation abort.
+#[test]
+fn level_text_and_lengths_past_the_limits_are_refused() {
+    let levels = Planner::parse_levels("64x3, 256x2").unwrap();
+    assert_eq!(levels, vec![(64, 3), (256, 2)]);
+    for bad in ["64x", "x3", "64*3", "64x-1", "", "64x3,,256x2"] {
+        let err = Planner::parse_levels(bad).unwrap_err();
+        assert!(matches!(err, PlanError::LevelsText { .. }), "{bad:?}: {err:?}");
+        assert!(err.to_string().contains("e.g. 64x15,512x14"), "{err}");
+    }
+    let huge = Planner::parse_levels("64x3,64x18446744073709551615").unwrap();
+    let err = Planner::new().block_frames(64).schedule(Schedule::Sync).custom(&huge, 1000).unwrap_err();
+    assert!(matches!(err, PlanError::TooLong { .. }), "{err:?}");
+    let err = Planner::new().plan(Plan::MAX_COVERED_FRAMES + 1).unwrap_err();
+    assert!(matches!(err, PlanError::TooLong { .. }), "{err:?}");
+    let err =
+        Planner::new().block_frames(1).schedule(Schedule::Sync).plan(Planner::MAX_OPTIMAL_BLOCKS + 1).unwrap_err();
+    assert!(matches!(err, PlanError::TooManyBlocks { limit_blocks: Planner::MAX_OPTIMAL_BLOCKS, .. }), "{err:?}");
+    assert!(err.to_string().contains("use a block of at least 2 frames"), "{err}");
+    // A uniform plan has no search: the same IR is planned.
+    let uniform = Planner::new().block_frames(1).mode(PlanMode::Uniform).schedule(Schedule::Sync);
+    assert!(uniform.plan(Planner::MAX_OPTIMAL_BLOCKS + 1).is_ok());
 }

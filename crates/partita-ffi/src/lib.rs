@@ -33,7 +33,7 @@ use partita_core::{
 };
 
 #[cfg(feature = "test-alloc-count")]
-mod alloc_count;
+pub mod alloc_count;
 
 /// The ABI version this library implements; [`partita_abi_version`] returns it. Raised on any change
 /// that breaks a caller compiled against an older header (new fields at the end of size-prefixed

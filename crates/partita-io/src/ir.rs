@@ -1,5 +1,6 @@
 //! Loading an impulse response from a WAV file, ready for the engine.
 
+use std::io::{Read, Seek, SeekFrom};
 use std::path::Path;
 
 use partita_core::{ImpulseResponse, IrError, Routing};
@@ -8,7 +9,7 @@ use crate::audio::Audio;
 use crate::condition::{normalize, resample, resampled_frames, trim_tail, Normalize};
 use crate::error::{ConditionError, IoError};
 use crate::info::WavInfo;
-use crate::read::{read_checked, MAX_DECODED_BYTES};
+use crate::read::{decode_checked, parse_header, read_checked, MAX_DECODED_BYTES};
 
 /// The longest impulse response accepted, in frames per channel (after resampling): 2^24 = 16,777,216 taps,
 /// 5.8 minutes at 48 kHz. The engine keeps about 16 bytes per tap per (input, IR channel) pair, so this is
@@ -57,17 +58,40 @@ pub struct LoadedIr {
 /// [`IoError::Condition`] for a missing or unfitting routing, a bad threshold, a silent IR with normalization;
 /// [`IoError::Ir`] if the core refuses the taps. All name the file.
 pub fn load_ir(path: &Path, options: &IrOptions) -> Result<LoadedIr, IoError> {
+    let (source, audio) = read_checked(path, MAX_DECODED_BYTES, |info| check_length(info, options, path))?;
+    condition_ir(source, audio, options, path)
+}
+
+/// [`load_ir`] for WAV bytes from any reader (a file already open, bytes in memory), the whole content from
+/// position 0; `name` is the path the errors name. Allocates.
+///
+/// # Errors
+/// As [`load_ir`].
+pub fn load_ir_from<R: Read + Seek>(mut reader: R, name: &Path, options: &IrOptions) -> Result<LoadedIr, IoError> {
+    let read_err = |source| IoError::Read { path: name.to_path_buf(), source };
+    let len = reader.seek(SeekFrom::End(0)).map_err(read_err)?;
+    reader.seek(SeekFrom::Start(0)).map_err(read_err)?;
+    let info = parse_header(&mut reader, len, name)?;
+    let (source, audio) =
+        decode_checked(reader, info, name, MAX_DECODED_BYTES, |info| check_length(info, options, name))?;
+    condition_ir(source, audio, options, name)
+}
+
+/// Refuses, from the header, an IR longer than [`MAX_IR_FRAMES`] once resampled.
+fn check_length(info: &WavInfo, options: &IrOptions, path: &Path) -> Result<(), IoError> {
+    let frames = match options.sample_rate_hz {
+        Some(to_hz) => resampled_frames(info.frames, info.sample_rate_hz, to_hz),
+        None => info.frames,
+    };
+    if frames > MAX_IR_FRAMES {
+        return Err(IoError::IrTooLong { path: path.to_path_buf(), frames, limit_frames: MAX_IR_FRAMES });
+    }
+    Ok(())
+}
+
+/// The steps of [`load_ir`] after reading: routing, trim, resample, normalize, validate.
+fn condition_ir(source: WavInfo, mut audio: Audio, options: &IrOptions, path: &Path) -> Result<LoadedIr, IoError> {
     let condition_err = |source| IoError::Condition { path: path.to_path_buf(), source };
-    let (source, mut audio) = read_checked(path, MAX_DECODED_BYTES, |info| {
-        let frames = match options.sample_rate_hz {
-            Some(to_hz) => resampled_frames(info.frames, info.sample_rate_hz, to_hz),
-            None => info.frames,
-        };
-        if frames > MAX_IR_FRAMES {
-            return Err(IoError::IrTooLong { path: path.to_path_buf(), frames, limit_frames: MAX_IR_FRAMES });
-        }
-        Ok(())
-    })?;
     if audio.frames() == 0 {
         return Err(IoError::EmptyIr { path: path.to_path_buf() });
     }

@@ -61,6 +61,6 @@ pub use condition::{normalize, resample, resample_signal, resampled_frames, scal
 pub use dither::Dither;
 pub use error::{ConditionError, IoError, ParseError};
 pub use info::{Encoding, WavInfo, WAVE_FORMAT_EXTENSIBLE, WAVE_FORMAT_IEEE_FLOAT, WAVE_FORMAT_PCM};
-pub use ir::{load_ir, to_impulse_response, IrOptions, LoadedIr, MAX_IR_FRAMES};
-pub use read::{read_wav, read_wav_info, read_wav_limited, MAX_DECODED_BYTES};
+pub use ir::{load_ir, load_ir_from, to_impulse_response, IrOptions, LoadedIr, MAX_IR_FRAMES};
+pub use read::{read_wav, read_wav_from, read_wav_info, read_wav_limited, MAX_DECODED_BYTES};
 pub use write::{write_wav, write_wav_atomic, SampleFormat, MAX_WAV_DATA_BYTES};

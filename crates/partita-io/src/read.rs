@@ -58,13 +58,43 @@ pub fn read_wav_limited(path: &Path, max_decoded_bytes: u64) -> Result<Audio, Io
     read_checked(path, max_decoded_bytes, |_| Ok(())).map(|(_, audio)| audio)
 }
 
+/// [`read_wav_limited`] for WAV bytes from any reader, e.g. a file already open or bytes in memory (a
+/// `std::io::Cursor`): the WAV is the reader's whole content, from position 0 to its end; `name` is the path the
+/// errors name. Allocates the samples.
+///
+/// Memory: besides the decoded samples (at most 4 bytes per byte of the data chunk, for 8-bit PCM, and never
+/// more than `max_decoded_bytes`) reading takes one read buffer of at most 64 KiB plus one frame, and one
+/// channel table. A header that claims more data than the reader holds is refused before anything is
+/// allocated.
+///
+/// # Errors
+/// As [`read_wav_limited`], naming `name`.
+pub fn read_wav_from<R: Read + Seek>(mut reader: R, name: &Path, max_decoded_bytes: u64) -> Result<Audio, IoError> {
+    let read_err = |source| IoError::Read { path: name.to_path_buf(), source };
+    let len = reader.seek(SeekFrom::End(0)).map_err(read_err)?;
+    reader.seek(SeekFrom::Start(0)).map_err(read_err)?;
+    let info = parse_header(&mut reader, len, name)?;
+    decode_checked(reader, info, name, max_decoded_bytes, |_| Ok(())).map(|(_, audio)| audio)
+}
+
 /// Opens, parses the header, lets `check` refuse the file from its header, then decodes.
 pub(crate) fn read_checked(
     path: &Path,
     max_decoded_bytes: u64,
     check: impl FnOnce(&WavInfo) -> Result<(), IoError>,
 ) -> Result<(WavInfo, Audio), IoError> {
-    let (mut reader, info) = open(path)?;
+    let (reader, info) = open(path)?;
+    decode_checked(reader, info, path, max_decoded_bytes, check)
+}
+
+/// Refuses a header whose samples exceed `max_decoded_bytes` or that `check` refuses, then decodes.
+pub(crate) fn decode_checked<R: Read + Seek>(
+    mut reader: R,
+    info: WavInfo,
+    path: &Path,
+    max_decoded_bytes: u64,
+    check: impl FnOnce(&WavInfo) -> Result<(), IoError>,
+) -> Result<(WavInfo, Audio), IoError> {
     if info.decoded_bytes() > max_decoded_bytes {
         return Err(IoError::TooLarge {
             path: path.to_path_buf(),

@@ -361,3 +361,22 @@ fn atomic_write_into_a_path_under_a_file_fails_cleanly() {
     let err = write_wav(&path, &test_signal(1, 10, 1), 48_000, SampleFormat::F32, Dither::OFF).unwrap_err();
     assert!(matches!(err, IoError::Write { .. }), "{err:?}");
 }
+
+/// The reader versions read the same as the path versions, from the start of the reader wherever it stands
+/// (a first version seeked to the end to measure the length and then read nothing: found by fuzzing).
+#[test]
+fn reading_from_a_reader_equals_reading_the_file() {
+    let taps = partita_core::synth::decaying_noise(300, 100.0, 4);
+    let path = tmp("reader.wav");
+    write_wav(&path, &[&taps[..], &taps[..]], 44_100, SampleFormat::Pcm24, Dither::OFF).unwrap();
+    let bytes = std::fs::read(&path).unwrap();
+    let mut cursor = std::io::Cursor::new(&bytes[..]);
+    cursor.set_position(17);
+    let from_reader = partita_io::read_wav_from(cursor, Path::new("memory.wav"), partita_io::MAX_DECODED_BYTES);
+    assert_eq!(from_reader.unwrap(), read_wav(&path).unwrap());
+    let options = partita_io::IrOptions { sample_rate_hz: Some(48_000), ..Default::default() };
+    let loaded = partita_io::load_ir_from(std::io::Cursor::new(&bytes[..]), Path::new("memory.wav"), &options);
+    assert_eq!(loaded.unwrap(), partita_io::load_ir(&path, &options).unwrap());
+    let err = partita_io::read_wav_from(std::io::Cursor::new(&b"RIFF"[..]), Path::new("memory.wav"), 1 << 20);
+    assert!(err.unwrap_err().to_string().starts_with("memory.wav: "));
+}

@@ -34,6 +34,11 @@ use std::fmt;
 /// same parameters, so a sidecar written by an older generator is recognised.
 pub const SWEEP_GENERATOR_VERSION: u32 = 1;
 
+/// The most frames a sweep and its silence may have together: 2^27 (46 minutes at 48 kHz, 5.8 at 384 kHz).
+/// Generating one holds three f64 copies of the sweep, so this bounds it to about 3 GiB, whatever a sweep
+/// sidecar asks for.
+pub const MAX_SWEEP_FRAMES: u64 = 1 << 27;
+
 /// The default level, dBFS (peak): low, for safety.
 pub const DEFAULT_LEVEL_DBFS: f64 = -20.0;
 
@@ -103,6 +108,11 @@ pub enum SweepError {
         /// The level asked for.
         level_dbfs: f64,
     },
+    /// The sweep and its silence together are longer than [`MAX_SWEEP_FRAMES`].
+    TooLong {
+        /// Frames of sweep and silence asked for (saturated).
+        frames: u64,
+    },
     /// The synchronized sweep needs f1 L >= 1, a longer sweep or a higher start frequency.
     TooShortToSynchronize {
         /// f1 T / ln(f2 / f1) before rounding.
@@ -128,6 +138,11 @@ impl fmt::Display for SweepError {
             Self::InvalidLevel { level_dbfs } => {
                 write!(f, "level {level_dbfs} dBFS is not possible: give a finite level at or below 0 dBFS")
             }
+            Self::TooLong { frames } => write!(
+                f,
+                "the sweep and its silence would be {frames} frames, over the limit of {MAX_SWEEP_FRAMES}; use a \
+                 shorter sweep, less silence or a lower sample rate"
+            ),
             Self::TooShortToSynchronize { cycles } => write!(
                 f,
                 "a synchronized sweep needs f1 T / ln(f2/f1) >= 1 (here {cycles:.3}); use a longer sweep or a \
@@ -215,6 +230,11 @@ impl SweepSpec {
             }
         }
         let sweep_s = self.sweep_duration_s();
+        let fs = self.sample_rate_hz as f64;
+        let frames = (sweep_s * fs).ceil() + (self.silence_s * fs).round();
+        if frames > MAX_SWEEP_FRAMES as f64 {
+            return Err(SweepError::TooLong { frames: frames.min(u64::MAX as f64) as u64 });
+        }
         if self.fade_in_s + self.fade_out_s > sweep_s {
             return Err(SweepError::FadesTooLong { fades_s: self.fade_in_s + self.fade_out_s, sweep_s });
         }
@@ -323,6 +343,20 @@ pub fn fnv1a64_f32(samples: &[f32]) -> u64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn sweeps_past_the_frame_limit_are_refused_before_generating() {
+        // Found by fuzzing the sweep sidecar: a sidecar may ask for any duration and silence.
+        let ok = SweepSpec { silence_s: 0.0, ..SweepSpec::new(SweepKind::Exponential, 48_000) };
+        ok.validate().unwrap();
+        let long_silence = SweepSpec { silence_s: 1e9, ..ok };
+        let err = long_silence.validate().unwrap_err();
+        assert!(matches!(err, SweepError::TooLong { frames } if frames >= MAX_SWEEP_FRAMES), "{err:?}");
+        assert!(err.to_string().contains("shorter sweep"), "{err}");
+        let at_limit_s = MAX_SWEEP_FRAMES as f64 / 48_000.0;
+        assert!(matches!(SweepSpec { duration_s: at_limit_s + 1.0, ..ok }.validate(), Err(SweepError::TooLong { .. })));
+        assert!(SweepSpec { duration_s: at_limit_s - 1.0, ..ok }.validate().is_ok());
+    }
 
     #[test]
     fn fnv1a_of_known_bytes() {

@@ -127,6 +127,14 @@ impl Engine {
         if options.max_host_frames == 0 {
             return Err(EngineError::MaxHostFramesZero);
         }
+        for (what, frames, limit_frames) in [
+            ("max_host_frames", options.max_host_frames, EngineOptions::MAX_HOST_FRAMES),
+            ("max_predelay_frames", options.max_predelay_frames, EngineOptions::MAX_PREDELAY_FRAMES),
+        ] {
+            if frames > limit_frames {
+                return Err(EngineError::OptionTooLarge { what, frames, limit_frames });
+            }
+        }
         if ir.frames() > plan.covered_frames() {
             return Err(EngineError::IrLongerThanPlan { ir_frames: ir.frames(), plan_frames: plan.covered_frames() });
         }

@@ -40,6 +40,13 @@ pub struct EngineOptions {
 }
 
 impl EngineOptions {
+    /// The largest `max_host_frames` an engine takes: 2^20 frames (21.8 s at 48 kHz). The engine keeps
+    /// buffers of this many frames per channel, so an absurd value (from a host or a C caller) is refused
+    /// instead of exhausting memory.
+    pub const MAX_HOST_FRAMES: usize = 1 << 20;
+    /// The largest `max_predelay_frames` an engine takes: 2^22 frames (87 s at 48 kHz, 16 MiB per output).
+    pub const MAX_PREDELAY_FRAMES: usize = 1 << 22;
+
     /// Defaults for a host calling with at most `max_host_frames` frames.
     pub fn new(max_host_frames: usize) -> Self {
         Self {

@@ -122,6 +122,12 @@ pub struct Plan {
 }
 
 impl Plan {
+    /// The most taps a plan may cover, head and levels: 2^25 = 33,554,432 (11.6 minutes at 48 kHz), twice
+    /// the longest IR partita-io loads, so a plan for any such IR fits with room for its last level. An
+    /// engine keeps about 32 bytes per covered tap per (input, IR channel) pair, so this bounds an engine's
+    /// memory for any plan it accepts, however the plan was written.
+    pub const MAX_COVERED_FRAMES: usize = 1 << 25;
+
     /// A uniformly partitioned plan: one level of block `block_frames` covering `ir_frames` taps,
     /// computed synchronously, latency `block_frames`.
     ///
@@ -194,10 +200,20 @@ impl Plan {
         if self.ir_frames == 0 {
             return Err(PlanError::IrFramesZero);
         }
+        let too_long = |frames| PlanError::TooLong { frames, limit_frames: Self::MAX_COVERED_FRAMES };
+        if self.ir_frames > Self::MAX_COVERED_FRAMES || self.head_frames > Self::MAX_COVERED_FRAMES {
+            return Err(too_long(self.ir_frames.max(self.head_frames)));
+        }
         let mut expected = self.head_frames;
         for (index, level) in self.levels.iter().enumerate() {
             if level.partitions == 0 {
                 return Err(PlanError::NoPartitions { level: index });
+            }
+            // Checked before any sum below, so a written plan's sizes cannot overflow them.
+            let end = level.block_frames.checked_mul(level.partitions).and_then(|l| l.checked_add(level.offset_frames));
+            match end {
+                Some(end) if end <= Self::MAX_COVERED_FRAMES => {}
+                _ => return Err(too_long(end.unwrap_or(usize::MAX))),
             }
             if level.block_frames == 0 || level.block_frames % b != 0 {
                 return Err(PlanError::LevelBlockNotMultiple {
@@ -274,6 +290,22 @@ mod tests {
         assert!(matches!(gap.validate(), Err(PlanError::Gap { .. })));
         let short = Plan { ir_frames: 5000, ..ok };
         assert!(matches!(short.validate(), Err(PlanError::TooShort { .. })));
+    }
+
+    #[test]
+    fn sizes_past_the_limit_or_overflowing_are_refused() {
+        let plan =
+            |levels, ir_frames| Plan { block_frames: 64, zero_latency: false, head_frames: 0, levels, ir_frames };
+        let limit = Plan::MAX_COVERED_FRAMES;
+        plan(vec![level(64, limit / 64, 0)], 1000).validate().unwrap();
+        let over = plan(vec![level(64, limit / 64 + 1, 0)], 1000).validate();
+        assert_eq!(over, Err(PlanError::TooLong { frames: limit + 64, limit_frames: limit }));
+        // From plan JSON, sizes whose product or sum overflows: refused, not wrapped or panicking.
+        let product = plan(vec![level(64, usize::MAX / 32, 0)], 1000).validate();
+        assert_eq!(product, Err(PlanError::TooLong { frames: usize::MAX, limit_frames: limit }));
+        let sum = plan(vec![level(64, 1, usize::MAX - 10)], 1000).validate();
+        assert!(matches!(sum, Err(PlanError::TooLong { .. })), "{sum:?}");
+        assert!(matches!(plan(vec![level(64, 1, 0)], limit + 1).validate(), Err(PlanError::TooLong { .. })));
     }
 
     #[test]

@@ -81,6 +81,11 @@ pub(crate) fn min_worker_level_frames(block_frames: usize, host_period_frames: O
 }
 
 impl Planner {
+    /// The longest IR, in engine blocks, the optimal planner takes: 2^18. Its search holds about 32 bytes
+    /// per block per candidate level size (up to about 40), so this keeps it under 400 MB; a 2^24-tap IR
+    /// (partita-io's limit) needs a block of 64 frames or more, or a uniform plan.
+    pub const MAX_OPTIMAL_BLOCKS: usize = 1 << 18;
+
     /// Block 64, block latency, the automatic schedule with [`DEFAULT_HEADROOM_PCT`] at 48 kHz and host
     /// calls of one block, optimal layout, flop model, mono cost, levels of at most 65,536 frames.
     /// [`schedule`](Self::schedule) fixes one schedule instead.
@@ -348,6 +353,16 @@ impl Planner {
         if ir_frames == 0 {
             return Err(PlanError::IrFramesZero);
         }
+        if ir_frames > Plan::MAX_COVERED_FRAMES {
+            return Err(PlanError::TooLong { frames: ir_frames, limit_frames: Plan::MAX_COVERED_FRAMES });
+        }
+        if self.mode == PlanMode::Optimal && ir_frames.div_ceil(b) > Self::MAX_OPTIMAL_BLOCKS {
+            return Err(PlanError::TooManyBlocks {
+                ir_frames,
+                block_frames: b,
+                limit_blocks: Self::MAX_OPTIMAL_BLOCKS,
+            });
+        }
         let head = self.head_frames(ir_frames);
         let levels = if head >= ir_frames {
             Vec::new()
@@ -367,6 +382,24 @@ impl Planner {
         Ok(plan)
     }
 
+    /// Reads a level list written as text, `NxP` (block frames x partitions) separated by commas in IR
+    /// order, e.g. `64x15,512x14,4096x14`, for [`custom`](Self::custom). Spaces around a level are
+    /// ignored. Allocates the list.
+    ///
+    /// # Errors
+    /// [`PlanError::LevelsText`] naming the first level that is not two unsigned integers joined by `x`.
+    pub fn parse_levels(text: &str) -> Result<Vec<(usize, usize)>, PlanError> {
+        text.split(',')
+            .map(|part| {
+                let bad = |problem| PlanError::LevelsText { level: part.trim().to_string(), problem };
+                let (n, p) = part.trim().split_once('x').ok_or_else(|| bad("needs the form NxP"))?;
+                let n = n.parse().map_err(|_| bad("the block size is not an unsigned integer"))?;
+                let p = p.parse().map_err(|_| bad("the partition count is not an unsigned integer"))?;
+                Ok((n, p))
+            })
+            .collect()
+    }
+
     /// A plan from the caller's levels, `(block_frames, partitions)` in IR order; offsets follow from the
     /// head and the sizes. Levels of the engine block are `sync`, others get the planner's schedule.
     ///
@@ -380,7 +413,8 @@ impl Planner {
             .iter()
             .map(|&(n, p)| {
                 let l = Level { block_frames: n, partitions: p, offset_frames: offset, schedule: self.schedule_for(n) };
-                offset += n * p;
+                // Saturated: validation refuses a level this far out (PlanError::TooLong).
+                offset = offset.saturating_add(n.saturating_mul(p));
                 l
             })
             .collect();
