@@ -20,6 +20,7 @@ pub mod input;
 mod ir;
 pub mod memory;
 mod plan;
+mod plugin_state;
 mod routing;
 mod sweep;
 mod wav;
@@ -27,6 +28,7 @@ mod wav;
 pub use ffi::c_abi;
 pub use ir::ir_prepare;
 pub use plan::plan;
+pub use plugin_state::plugin_state;
 pub use routing::routing_text;
 pub use sweep::sweep_sidecar;
 pub use wav::wav_reader;
@@ -43,6 +45,7 @@ pub const TARGETS: &[Target] = &[
     ("routing_text", routing_text),
     ("sweep_sidecar", sweep_sidecar),
     ("c_abi", c_abi),
+    ("plugin_state", plugin_state),
 ];
 
 /// Checks the one-line error message of a refused input: it names `name` first, says something, and is
