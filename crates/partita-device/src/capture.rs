@@ -27,14 +27,13 @@
 use std::sync::atomic::Ordering::{Acquire, Relaxed, Release};
 use std::sync::atomic::{AtomicBool, AtomicU64};
 use std::sync::Arc;
-use std::time::Instant;
 
-use jack::{AudioIn, AudioOut, Client, ClientOptions, ClientStatus, Control, Port, PortFlags, ProcessScope};
+use jack::{AudioIn, AudioOut, Client, ClientStatus, Control, Port, ProcessScope};
 
 use crate::bridge::CallbackTimer;
-use crate::duplex::{off_thread_bounded, CLOSE_WAIT, STALL_AFTER, STALL_GRACE};
+use crate::duplex::{connect_client, off_thread_bounded, physical_ports, CLOSE_WAIT};
 use crate::error::{DeviceError, Direction};
-use crate::stats::{BridgeCells, Fault, Stats};
+use crate::stats::{BridgeCells, Fault, Stats, Watchdog};
 
 /// Length of the fade-out after a stop request, ms.
 pub const STOP_FADE_MS: f64 = 20.0;
@@ -269,16 +268,8 @@ impl JackCapture {
     /// [`DeviceError::Jack`] when no server answers or a port cannot be registered;
     /// [`DeviceError::ChannelMap`] when a port to connect does not exist.
     pub fn open(options: &CaptureOptions) -> Result<Self, DeviceError> {
-        let (client, _status) = Client::new(&options.client_name, ClientOptions::NO_START_SERVER).map_err(|e| {
-            DeviceError::Jack(format!(
-                "cannot connect to a JACK server ({e}); is the JACK server running (JACK_DEFAULT_SERVER={})? Start \
-                 one with jackd or your desktop's sound server",
-                std::env::var("JACK_DEFAULT_SERVER").unwrap_or_else(|_| "default".into())
-            ))
-        })?;
-        let audio = Some("32 bit float mono audio");
-        let capture_ports = client.ports(None, audio, PortFlags::IS_PHYSICAL | PortFlags::IS_OUTPUT);
-        let playback_ports = client.ports(None, audio, PortFlags::IS_PHYSICAL | PortFlags::IS_INPUT);
+        let client = connect_client(&options.client_name, "")?;
+        let (capture_ports, playback_ports) = physical_ports(&client);
         let output_to = resolve(&client, &options.output, &playback_ports, "playback")?;
         let input_from = resolve(&client, &options.input, &capture_ports, "capture")?;
         let out = client.register_port("out_1", AudioOut::default()).map_err(|e| jack_error("registering out_1", e))?;
@@ -355,15 +346,13 @@ impl JackCapture {
             c.connect_ports_by_name(src, &in_name).map_err(|e| jack_error(&format!("connecting {src}"), e))?;
             connections.push((src.clone(), in_name.clone()));
         }
-        let now = Instant::now();
         Ok(CaptureStream {
             client: Some(active),
             shared,
             cells,
             info: CaptureInfo { client: name, sample_rate_hz: rate, period_frames: period, connections },
             record_frames,
-            started: now,
-            watch: (0, now),
+            watch: Watchdog::new(),
         })
     }
 }
@@ -416,8 +405,7 @@ pub struct CaptureStream {
     cells: Arc<CaptureCells>,
     info: CaptureInfo,
     record_frames: usize,
-    started: Instant,
-    watch: (u64, Instant),
+    watch: Watchdog,
 }
 
 impl std::fmt::Debug for CaptureStream {
@@ -470,11 +458,7 @@ impl CaptureStream {
         if let Some(f) = self.shared.fault() {
             return Some(f);
         }
-        let count = self.shared.callbacks_out.load(Relaxed);
-        let now = Instant::now();
-        if count != self.watch.0 {
-            self.watch = (count, now);
-        } else if now.duration_since(self.started) > STALL_GRACE && now.duration_since(self.watch.1) > STALL_AFTER {
+        if self.watch.stalled(self.shared.callbacks_out.load(Relaxed)) {
             self.shared.set_fault(Fault::Stalled(Direction::Output));
             return self.shared.fault();
         }

@@ -28,7 +28,7 @@
 use std::sync::atomic::Ordering::{Acquire, Relaxed, Release};
 use std::sync::atomic::{AtomicBool, AtomicU32, AtomicU64};
 use std::sync::Arc;
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use jack::{AudioIn, AudioOut, Client, ClientOptions, ClientStatus, Control, Port, PortFlags, ProcessScope};
 use partita_core::{Engine, Monitor};
@@ -39,12 +39,7 @@ use crate::bridge::{BridgeOptions, CallbackTimer, Stage, MAX_ENGINE_CHANNELS};
 use crate::channels::ChannelMap;
 use crate::error::{DeviceError, Direction};
 use crate::safety::SafetyOptions;
-use crate::stats::{BridgeCells, Fault, Peaks, Stats};
-
-/// A stream that makes no callback for this long, once running, is declared stalled.
-pub(crate) const STALL_AFTER: Duration = Duration::from_secs(1);
-/// Grace time after start before the watchdog looks.
-pub(crate) const STALL_GRACE: Duration = Duration::from_secs(2);
+use crate::stats::{BridgeCells, Fault, Peaks, Stats, Watchdog};
 
 /// How the duplex client is set up.
 #[derive(Debug, Clone)]
@@ -329,16 +324,8 @@ impl JackDuplex {
                 return Err(DeviceError::TooManyChannels { channels, max: MAX_ENGINE_CHANNELS });
             }
         }
-        let (client, _status) = Client::new(&options.client_name, ClientOptions::NO_START_SERVER).map_err(|e| {
-            DeviceError::Jack(format!(
-                "cannot connect to a JACK server ({e}); is the JACK server running (JACK_DEFAULT_SERVER={})? Start \
-                 one with jackd or your desktop's sound server, or choose another --host",
-                std::env::var("JACK_DEFAULT_SERVER").unwrap_or_else(|_| "default".into())
-            ))
-        })?;
-        let audio = Some("32 bit float mono audio");
-        let capture_ports = client.ports(None, audio, PortFlags::IS_PHYSICAL | PortFlags::IS_OUTPUT);
-        let playback_ports = client.ports(None, audio, PortFlags::IS_PHYSICAL | PortFlags::IS_INPUT);
+        let client = connect_client(&options.client_name, ", or choose another --host")?;
+        let (capture_ports, playback_ports) = physical_ports(&client);
         let map = if options.connect {
             // The map needs at least one port each way; with none we connect nothing.
             let (din, dout) = (capture_ports.len().max(1), playback_ports.len().max(1));
@@ -466,7 +453,6 @@ impl JackDuplex {
                 }
             }
         }
-        let now = Instant::now();
         let mut stream = DuplexStream {
             client: Some(active),
             latency: Some(latency),
@@ -477,8 +463,7 @@ impl JackDuplex {
             rebuild,
             monitors,
             info: DuplexInfo { client: name, sample_rate_hz: rate, period_frames: period, connections },
-            started: now,
-            watch: (0, now),
+            watch: Watchdog::new(),
             rebuild_error: None,
         };
         stream.record_latency();
@@ -531,8 +516,7 @@ pub struct DuplexStream {
     /// engines stay in the totals.
     monitors: Vec<Monitor>,
     info: DuplexInfo,
-    started: Instant,
-    watch: (u64, Instant),
+    watch: Watchdog,
     rebuild_error: Option<String>,
 }
 
@@ -640,11 +624,7 @@ impl DuplexStream {
         if let Some(f) = self.shared.fault() {
             return Some(f);
         }
-        let count = self.shared.callbacks_out.load(Relaxed);
-        let now = Instant::now();
-        if count != self.watch.0 {
-            self.watch = (count, now);
-        } else if now.duration_since(self.started) > STALL_GRACE && now.duration_since(self.watch.1) > STALL_AFTER {
+        if self.watch.stalled(self.shared.callbacks_out.load(Relaxed)) {
             self.shared.set_fault(Fault::Stalled(Direction::Output));
             return self.shared.fault();
         }
@@ -709,4 +689,26 @@ pub(crate) fn off_thread_bounded<T: Send + 'static>(close: impl FnOnce() -> T + 
         })
         .ok()?;
     rx.recv_timeout(CLOSE_WAIT).ok()
+}
+
+/// A new client `name` on the default JACK server (`JACK_DEFAULT_SERVER`), never starting one. `hint`
+/// ends the error message (what else the user can do).
+pub(crate) fn connect_client(name: &str, hint: &str) -> Result<Client, DeviceError> {
+    let (client, _status) = Client::new(name, ClientOptions::NO_START_SERVER).map_err(|e| {
+        DeviceError::Jack(format!(
+            "cannot connect to a JACK server ({e}); is the JACK server running (JACK_DEFAULT_SERVER={})? Start \
+             one with jackd or your desktop's sound server{hint}",
+            std::env::var("JACK_DEFAULT_SERVER").unwrap_or_else(|_| "default".into())
+        ))
+    })?;
+    Ok(client)
+}
+
+/// The server's physical audio ports: capture ports (sources of sound) and playback ports, in its order.
+pub(crate) fn physical_ports(client: &Client) -> (Vec<String>, Vec<String>) {
+    let audio = Some("32 bit float mono audio");
+    (
+        client.ports(None, audio, PortFlags::IS_PHYSICAL | PortFlags::IS_OUTPUT),
+        client.ports(None, audio, PortFlags::IS_PHYSICAL | PortFlags::IS_INPUT),
+    )
 }

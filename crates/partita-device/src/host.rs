@@ -1,7 +1,7 @@
 //! Hosts, devices and configurations through cpal, and the running [`LiveStream`].
 
 use std::str::FromStr;
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use cpal::traits::{DeviceTrait, HostTrait, StreamTrait};
 use cpal::{BufferSize, SampleFormat, StreamConfig, SupportedBufferSize, SupportedStreamConfigRange};
@@ -13,14 +13,10 @@ use crate::convert;
 use crate::drift::DriftOptions;
 use crate::error::{DeviceError, Direction};
 use crate::safety::SafetyOptions;
-use crate::stats::{Fault, Stats};
+use crate::stats::{Fault, Stats, Watchdog};
 
 /// How long building a stream may take before we give up (JACK honours it).
 const BUILD_TIMEOUT: Duration = Duration::from_secs(5);
-/// A stream that makes no callback for this long, once running, is declared stalled.
-const STALL_AFTER: Duration = Duration::from_secs(1);
-/// Grace time after start before the watchdog looks.
-const STALL_GRACE: Duration = Duration::from_secs(2);
 
 /// Names of the hosts this build offers (e.g. `ALSA`, and `JACK` with the `jack` feature).
 pub fn host_names() -> Vec<String> {
@@ -565,14 +561,7 @@ impl LiveDevices {
             margin_frames: margin,
             side: options.side,
         };
-        let now = Instant::now();
-        Ok(LiveStream {
-            streams: vec![input_stream, output_stream],
-            handle,
-            info,
-            started: now,
-            watch: [(0, now), (0, now)],
-        })
+        Ok(LiveStream { streams: vec![input_stream, output_stream], handle, info, watch: [Watchdog::new(); 2] })
     }
 }
 
@@ -620,9 +609,8 @@ pub struct LiveStream {
     streams: Vec<cpal::Stream>,
     handle: BridgeHandle,
     info: LiveInfo,
-    started: Instant,
-    /// Per direction: callbacks seen at the last change, and when.
-    watch: [(u64, Instant); 2],
+    /// Per direction, input then output.
+    watch: [Watchdog; 2],
 }
 
 impl std::fmt::Debug for LiveStream {
@@ -655,17 +643,9 @@ impl LiveStream {
             return Some(f);
         }
         let stats = self.handle.stats();
-        let now = Instant::now();
-        for (k, (count, dir)) in
-            [(stats.input_callbacks, Direction::Input), (stats.output_callbacks, Direction::Output)]
-                .into_iter()
-                .enumerate()
-        {
-            let (seen, at) = &mut self.watch[k];
-            if count != *seen {
-                *seen = count;
-                *at = now;
-            } else if now.duration_since(self.started) > STALL_GRACE && now.duration_since(*at) > STALL_AFTER {
+        let counts = [(stats.input_callbacks, Direction::Input), (stats.output_callbacks, Direction::Output)];
+        for (watch, (count, dir)) in self.watch.iter_mut().zip(counts) {
+            if watch.stalled(count) {
                 self.handle.set_fault(Fault::Stalled(dir));
                 return self.handle.fault();
             }

@@ -416,3 +416,36 @@ impl BridgeCells {
         }
     }
 }
+
+/// A stream that makes no callback for this long, once running, is declared stalled.
+const STALL_AFTER: std::time::Duration = std::time::Duration::from_secs(1);
+/// Grace time after start before the watchdog looks.
+const STALL_GRACE: std::time::Duration = std::time::Duration::from_secs(2);
+
+/// Finds a stream whose callbacks stopped: its callback count has not moved for a second, two seconds or
+/// more after the start. The control thread feeds it the count at each poll.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Watchdog {
+    started: std::time::Instant,
+    seen: u64,
+    at: std::time::Instant,
+}
+
+impl Watchdog {
+    pub(crate) fn new() -> Self {
+        let now = std::time::Instant::now();
+        Self { started: now, seen: 0, at: now }
+    }
+
+    /// Whether the stream is stalled, given its callback count now.
+    pub(crate) fn stalled(&mut self, count: u64) -> bool {
+        let now = std::time::Instant::now();
+        if count != self.seen {
+            self.seen = count;
+            self.at = now;
+            false
+        } else {
+            now.duration_since(self.started) > STALL_GRACE && now.duration_since(self.at) > STALL_AFTER
+        }
+    }
+}
