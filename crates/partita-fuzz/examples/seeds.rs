@@ -1,6 +1,6 @@
 //! Writes the seed corpus of every fuzz target into `fuzz/corpus/<target>/seed-*`: small valid inputs and
 //! the hand-built bad inputs of the crates' own tests (partita-io's `bad_input.rs`, the planner's and the
-//! routing's refusals, the sidecar's). Run it after changing a target's input format:
+//! routing's refusals, the sidecar's, the plugin state's). Run it after changing a target's input format:
 //!
 //! ```text
 //! cargo run -p partita-fuzz --example seeds
@@ -259,6 +259,78 @@ fn c_abi_seeds() -> Vec<(&'static str, Vec<u8>)> {
     ]
 }
 
+fn plugin_state_seeds() -> Vec<(&'static str, Vec<u8>)> {
+    use partita_io::Audio;
+    use partita_plugin::state::{SavedFile, SavedState, STATE_MAGIC, STATE_VERSION};
+    // Every parameter at its default, as a fresh instance saves it.
+    let defaults: Vec<(u32, f64)> = partita_plugin::params::ParamValues::new(0)
+        .snapshot()
+        .iter()
+        .enumerate()
+        .filter(|&(id, _)| id != 10)
+        .map(|(id, &v)| (id as u32, v))
+        .collect();
+    let state = |params: Vec<(u32, f64)>, file: Option<SavedFile>| SavedState { params, file }.encode();
+    let file = |path: &str, audio: Option<Audio>| Some(SavedFile { path: path.into(), audio });
+    let good = state(defaults.clone(), None);
+    let with_version = |v: u32| {
+        let mut b = good.clone();
+        b[8..12].copy_from_slice(&v.to_le_bytes());
+        b
+    };
+    let mut huge = STATE_MAGIC.to_vec();
+    for word in [STATE_VERSION, 0] {
+        huge.extend_from_slice(&word.to_le_bytes());
+    }
+    huge.push(1);
+    huge.extend_from_slice(&1u32.to_le_bytes());
+    huge.push(b'a');
+    huge.push(1);
+    huge.extend_from_slice(&48_000u32.to_le_bytes());
+    huge.extend_from_slice(&4u32.to_le_bytes());
+    huge.extend_from_slice(&(1u64 << 40).to_le_bytes());
+    let mut nan_sample = state(vec![], file("x.wav", Some(Audio::new(vec![vec![0.0]], 48_000))));
+    let n = nan_sample.len();
+    nan_sample[n - 4..].copy_from_slice(&f32::NAN.to_le_bytes());
+    let mut trailing = good.clone();
+    trailing.push(0);
+    vec![
+        ("defaults", good.clone()),
+        ("custom-room", state(vec![(6, 0.0), (7, 2400.0), (8, 3.2), (9, 0.35), (0, 55.0)], None)),
+        ("file-path", state(defaults.clone(), file("/home/user/irs/stairwell.wav", None))),
+        (
+            "file-embedded-stereo",
+            state(
+                defaults.clone(),
+                file(
+                    "irs/hall.wav",
+                    Some(Audio::new(vec![vec![1.0, -0.5, 0.25, 0.0], vec![0.5, 0.25, -0.125, 0.0]], 44_100)),
+                ),
+            ),
+        ),
+        (
+            "file-embedded-true-stereo",
+            state(
+                vec![(0, 100.0)],
+                file(
+                    "ts.wav",
+                    Some(Audio::new(vec![vec![1.0, 0.1], vec![0.2, 0.3], vec![0.0, -0.1], vec![0.9, 0.0]], 48_000)),
+                ),
+            ),
+        ),
+        ("out-of-range-values", state(vec![(0, 1e9), (3, -1e9), (8, f64::INFINITY), (5, -3.0), (99, 1.0)], None)),
+        ("nan-value", state(vec![(2, f64::NAN)], None)),
+        ("newer-version", with_version(STATE_VERSION + 1)),
+        ("version-zero", with_version(0)),
+        ("not-ours", b"RIFF\x24\x00\x00\x00WAVEfmt ".to_vec()),
+        ("truncated", good[..37].to_vec()),
+        ("trailing", trailing),
+        ("nan-sample", nan_sample),
+        ("huge-frames", huge),
+        ("empty", Vec::new()),
+    ]
+}
+
 fn write(root: &Path, target: &str, seeds: Vec<(&'static str, Vec<u8>)>) {
     let dir = root.join("corpus").join(target);
     std::fs::create_dir_all(&dir).unwrap();
@@ -281,5 +353,6 @@ fn main() {
     write(&root, "routing_text", routing_seeds());
     write(&root, "sweep_sidecar", sweep_seeds());
     write(&root, "c_abi", c_abi_seeds());
+    write(&root, "plugin_state", plugin_state_seeds());
     println!("seeds written under {}", root.join("corpus").display());
 }

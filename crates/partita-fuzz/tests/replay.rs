@@ -69,14 +69,14 @@ fn valid_seeds_are_accepted() {
 fn plugin_state_seeds_decode_as_named() {
     use partita_plugin::state::{SavedState, StateError};
     let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../fuzz/corpus/plugin_state");
-    let read = |name: &str| SavedState::decode(&std::fs::read(dir.join(name)).unwrap());
-    for name in ["defaults", "custom_room", "file_path", "file_embedded_stereo", "file_embedded_true_stereo"] {
+    let read = |name: &str| SavedState::decode(&std::fs::read(dir.join(format!("seed-{name}"))).unwrap());
+    for name in ["defaults", "custom-room", "file-path", "file-embedded-stereo", "file-embedded-true-stereo"] {
         assert!(read(name).is_ok(), "{name} refused: {:?}", read(name));
     }
-    assert!(read("file_embedded_true_stereo").unwrap().file.unwrap().audio.is_some_and(|a| a.channel_count() == 4));
-    assert_eq!(read("newer_version"), Err(StateError::Newer { version: 2 }));
-    assert_eq!(read("not_ours"), Err(StateError::NotOurs));
-    for name in ["truncated", "trailing", "nan_sample", "huge_frames", "version_zero"] {
+    assert!(read("file-embedded-true-stereo").unwrap().file.unwrap().audio.is_some_and(|a| a.channel_count() == 4));
+    assert_eq!(read("newer-version"), Err(StateError::Newer { version: 2 }));
+    assert_eq!(read("not-ours"), Err(StateError::NotOurs));
+    for name in ["truncated", "trailing", "nan-sample", "huge-frames", "version-zero"] {
         assert!(matches!(read(name), Err(StateError::Corrupt { .. })), "{name}: {:?}", read(name));
     }
 }
