@@ -157,7 +157,8 @@ impl SavedState {
                         let frames = u64::from_le_bytes(r.array("frames")?);
                         if !(1..=4).contains(&channels)
                             || frames == 0
-                            || channels * frames > MAX_EMBEDDED_SAMPLES
+                            // Divided, not multiplied: a damaged frame count may be near u64::MAX.
+                            || frames > MAX_EMBEDDED_SAMPLES / channels
                             || rate == 0
                         {
                             return Err(StateError::Corrupt { what: "embedded IR size" });
@@ -244,6 +245,16 @@ mod tests {
         assert!(err.to_string().contains("newer Partita plugin"), "{err}");
         assert_eq!(SavedState::decode(b"RIFF....WAVE"), Err(StateError::NotOurs));
         let good = sample().encode();
+        // A frame count whose product with the channel count overflows (found by the plugin_state fuzz
+        // target: it panicked in the size check).
+        let mut huge = STATE_MAGIC.to_vec();
+        huge.extend_from_slice(&STATE_VERSION.to_le_bytes());
+        huge.extend_from_slice(&0u32.to_le_bytes());
+        huge.extend_from_slice(&[1, 1, 0, 0, 0, b'a', 1]);
+        huge.extend_from_slice(&48_000u32.to_le_bytes());
+        huge.extend_from_slice(&4u32.to_le_bytes());
+        huge.extend_from_slice(&(u64::MAX / 2).to_le_bytes());
+        assert_eq!(SavedState::decode(&huge), Err(StateError::Corrupt { what: "embedded IR size" }));
         for cut in [10, 20, good.len() - 1] {
             assert!(matches!(SavedState::decode(&good[..cut]), Err(StateError::Corrupt { .. })), "cut at {cut}");
         }
