@@ -139,9 +139,9 @@ fn impulse_run(ir: &ImpulseResponse, zero_latency: bool) -> (Result<(), String>,
     let duplex = JackDuplex::open(&options, 2, 2).expect("duplex client");
     assert_eq!((duplex.sample_rate_hz(), duplex.period_frames()), (RATE, 64));
     let name = duplex.client_name();
-    let engine = engine_for(&ir, 64, zero_latency, None, 64);
+    let engine = engine_for(ir, 64, zero_latency, None, 64);
     let engine_latency = engine.latency_frames();
-    let mut stream = duplex.start(engine, rebuild_for(&ir, 64, None)).expect("duplex starts");
+    let mut stream = duplex.start(engine, rebuild_for(ir, 64, None)).expect("duplex starts");
     // An impulse on the left, noise on the right, from frame `start` of the source's timeline.
     let start = RATE as usize / 4;
     let mut left = vec![0.0f32; 4800];
