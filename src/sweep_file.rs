@@ -215,7 +215,7 @@ impl SweepSidecar {
     /// [`SidecarError::Parse`], [`SidecarError::Invalid`].
     pub fn from_json(bytes: &[u8], path: &Path) -> Result<(Self, SweepSpec), SidecarError> {
         let sidecar: Self = serde_json::from_slice(bytes)
-            .map_err(|e| SidecarError::Parse { path: path.into(), error: e.to_string() })?;
+            .map_err(|e| SidecarError::Parse { path: path.into(), error: short_json_error(&e) })?;
         let spec = sidecar.spec().map_err(|error| SidecarError::Invalid { path: path.into(), error })?;
         Ok((sidecar, spec))
     }
@@ -250,4 +250,33 @@ impl SweepSidecar {
 /// The sidecar path beside a sweep WAV: the same name with the extension `.json`.
 pub fn sidecar_path(wav: &Path) -> PathBuf {
     wav.with_extension("json")
+}
+
+/// The JSON reader's message, cut to a line a person reads: serde_json quotes the offending value whole,
+/// which for a damaged file can be kilobytes (found by the sweep_sidecar fuzz target).
+fn short_json_error(e: &serde_json::Error) -> String {
+    const KEEP: usize = 160;
+    let full = e.to_string();
+    if full.chars().count() <= KEEP + 40 {
+        return full;
+    }
+    let head: String = full.chars().take(KEEP).collect();
+    format!("{head}... at line {} column {}", e.line(), e.column())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A damaged sidecar whose offending value is long gives a short message (the JSON reader quotes the
+    /// value whole; found by the sweep_sidecar fuzz target).
+    #[test]
+    fn a_long_bad_value_gives_a_short_message() {
+        let json = format!("\"{}\"", "a".repeat(5000));
+        let err = SweepSidecar::from_json(json.as_bytes(), Path::new("x.json")).unwrap_err().to_string();
+        assert!(err.len() < 300, "{} bytes: {err}", err.len());
+        assert!(err.starts_with("x.json: not a sweep sidecar") && err.contains("at line 1 column"), "{err}");
+        let short = SweepSidecar::from_json(b"{}", Path::new("x.json")).unwrap_err().to_string();
+        assert!(short.contains("missing field"), "short messages stay whole: {short}");
+    }
 }
