@@ -100,6 +100,13 @@ pub enum IoError {
         /// The file.
         path: PathBuf,
     },
+    /// More channels than Partita reads ([`MAX_WAV_CHANNELS`](crate::MAX_WAV_CHANNELS)).
+    TooManyChannels {
+        /// The file.
+        path: PathBuf,
+        /// What the header says.
+        channels: u16,
+    },
     /// The header says 0 Hz.
     ZeroSampleRate {
         /// The file.
@@ -336,6 +343,12 @@ impl fmt::Display for IoError {
             Self::ZeroChannels { path } => {
                 write!(f, "{}: the header says 0 channels; the header is damaged", path.display())
             }
+            Self::TooManyChannels { path, channels } => write!(
+                f,
+                "{}: the header says {channels} channels; Partita reads at most {} (a matrix routing of 32 x 32)",
+                path.display(),
+                crate::MAX_WAV_CHANNELS
+            ),
             Self::ZeroSampleRate { path } => {
                 write!(f, "{}: the header says a sample rate of 0 Hz; the header is damaged", path.display())
             }
@@ -449,6 +462,7 @@ impl IoError {
             | Self::MissingChunk { path, .. }
             | Self::DataBeyondEnd { path, .. }
             | Self::ZeroChannels { path }
+            | Self::TooManyChannels { path, .. }
             | Self::ZeroSampleRate { path }
             | Self::UnsupportedFormat { path, .. }
             | Self::UnknownSubformat { path, .. }

@@ -62,5 +62,5 @@ pub use dither::Dither;
 pub use error::{ConditionError, IoError, ParseError};
 pub use info::{Encoding, WavInfo, WAVE_FORMAT_EXTENSIBLE, WAVE_FORMAT_IEEE_FLOAT, WAVE_FORMAT_PCM};
 pub use ir::{load_ir, load_ir_from, to_impulse_response, IrOptions, LoadedIr, MAX_IR_FRAMES};
-pub use read::{read_wav, read_wav_from, read_wav_info, read_wav_limited, MAX_DECODED_BYTES};
+pub use read::{read_wav, read_wav_from, read_wav_info, read_wav_limited, MAX_DECODED_BYTES, MAX_WAV_CHANNELS};
 pub use write::{write_wav, write_wav_atomic, SampleFormat, MAX_WAV_DATA_BYTES};
