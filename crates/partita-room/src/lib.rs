@@ -23,6 +23,7 @@
 #![warn(missing_docs)]
 #![deny(unsafe_op_in_unsafe_fn)]
 
+pub mod align;
 pub mod analysis;
 pub mod deconvolve;
 pub mod phrase;
