@@ -16,7 +16,7 @@
 //!   written before activation. It never allocates, locks or waits. No fade-in and no runaway mute
 //!   (a sweep brings its own fade-in, and its level is fixed before it starts): only the ceiling.
 //! - [`CaptureStream::request_stop`] (Ctrl-C) makes the callback fade the output out over
-//!   [`STOP_FADE_MS`] with a raised-cosine ramp, then play silence and stop recording.
+//!   [`STOP_FADE_MS`](crate::STOP_FADE_MS) with a raised-cosine ramp, then play silence and stop recording.
 //! - A server that goes away, a sample-rate change (it would make the recording useless) or a callback
 //!   that stops coming is a [`Fault`]. [`CaptureStream::finish`] closes the client with a bounded wait and
 //!   hands back the recording.
@@ -33,10 +33,8 @@ use jack::{AudioIn, AudioOut, Client, ClientStatus, Control, Port, ProcessScope}
 use crate::bridge::CallbackTimer;
 use crate::duplex::{connect_client, off_thread_bounded, physical_ports, CLOSE_WAIT};
 use crate::error::{DeviceError, Direction};
+use crate::split::SignalSource;
 use crate::stats::{BridgeCells, Fault, Stats, Watchdog};
-
-/// Length of the fade-out after a stop request, ms.
-pub const STOP_FADE_MS: f64 = 20.0;
 
 /// What one of the capture client's ports connects to.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -94,26 +92,9 @@ struct Process {
     cells: Arc<CaptureCells>,
     out: Port<AudioOut>,
     inp: Port<AudioIn>,
-    signal: Vec<f32>,
+    source: SignalSource,
     recording: Vec<f32>,
-    ceiling: f32,
-    fade_frames: u64,
-    /// Frames of the fade-out done, once a stop was seen (`None`: not stopping).
-    fade_pos: Option<u64>,
-    pos: u64,
     realtime: bool,
-}
-
-impl Process {
-    /// Gain of the stop fade at `k` frames into it: a raised cosine from 1 to 0 over `fade_frames`.
-    #[inline]
-    fn fade_gain(k: u64, fade_frames: u64) -> f32 {
-        if k >= fade_frames {
-            0.0
-        } else {
-            (0.5 + 0.5 * (std::f64::consts::PI * k as f64 / fade_frames as f64).cos()) as f32
-        }
-    }
 }
 
 impl jack::ProcessHandler for Process {
@@ -135,20 +116,17 @@ impl jack::ProcessHandler for Process {
             timer.finish(shared, frames);
             return Control::Continue;
         }
-        if self.fade_pos.is_none() && self.cells.stop.load(Acquire) {
-            self.fade_pos = Some(0);
-            self.cells.stopped_at.store(self.pos, Relaxed);
+        if self.cells.stop.load(Acquire) {
+            if let Some(at) = self.source.begin_stop() {
+                self.cells.stopped_at.store(at, Relaxed);
+            }
         }
         let inp = self.inp.as_slice(ps);
         let (mut bad, mut in_peak, mut out_peak) = (0u64, 0.0f32, 0.0f32);
         let mut ended = false;
         for (i, y) in out.iter_mut().enumerate() {
-            let n = self.pos as usize;
-            let mut v = self.signal.get(n).copied().unwrap_or(0.0).clamp(-self.ceiling, self.ceiling);
-            if let Some(k) = self.fade_pos.as_mut() {
-                v *= Process::fade_gain(*k, self.fade_frames);
-                *k += 1;
-            }
+            let n = self.source.pos as usize;
+            let v = self.source.next_sample();
             *y = v;
             out_peak = out_peak.max(v.abs());
             if let Some(r) = self.recording.get_mut(n) {
@@ -161,16 +139,15 @@ impl jack::ProcessHandler for Process {
                     0.0
                 };
             }
-            self.pos += 1;
-            let faded = self.fade_pos.is_some_and(|k| k >= self.fade_frames);
-            if !ended && (self.pos as usize >= self.recording.len() || faded) {
+            let pos = self.source.pos;
+            if !ended && (pos as usize >= self.recording.len() || self.source.faded()) {
                 // The recording is complete, or the fade-out is over: record no further.
                 ended = true;
-                self.cells.recorded.store(self.pos.min(self.recording.len() as u64), Relaxed);
+                self.cells.recorded.store(pos.min(self.recording.len() as u64), Relaxed);
                 self.cells.done.store(true, Release);
             }
         }
-        self.cells.position.store(self.pos, Relaxed);
+        self.cells.position.store(self.source.pos, Relaxed);
         if bad > 0 {
             shared.nonfinite_inputs.fetch_add(bad, Relaxed);
         }
@@ -302,7 +279,6 @@ impl JackCapture {
     /// # Panics
     /// When `ceiling` is not finite and positive.
     pub fn start(self, signal: Vec<f32>, ceiling: f32, record_frames: usize) -> Result<CaptureStream, DeviceError> {
-        assert!(ceiling.is_finite() && ceiling > 0.0, "the ceiling must be a positive level");
         let Self { client, out, inp, output_to, input_from, realtime } = self;
         let rate = client.sample_rate();
         let period = client.buffer_size();
@@ -317,18 +293,13 @@ impl JackCapture {
         // `vec![0.0; n]` may come from calloc's untouched zero pages; resize writes every one.
         let mut recording = Vec::with_capacity(record_frames);
         recording.resize(record_frames, 0.0f32);
-        let fade_frames = ((STOP_FADE_MS * 1e-3 * f64::from(rate)).round() as u64).max(1);
         let process = Process {
             shared: Arc::clone(&shared),
             cells: Arc::clone(&cells),
             out,
             inp,
-            signal,
+            source: SignalSource::new(signal, ceiling, rate),
             recording,
-            ceiling,
-            fade_frames,
-            fade_pos: None,
-            pos: 0,
             realtime,
         };
         let notifications = Notifications { shared: Arc::clone(&shared), rate_hz: rate };
@@ -430,7 +401,7 @@ impl CaptureStream {
         self.cells.done.load(Acquire)
     }
 
-    /// Asks the callback to fade the output out over [`STOP_FADE_MS`] and stop recording.
+    /// Asks the callback to fade the output out over [`STOP_FADE_MS`](crate::STOP_FADE_MS) and stop recording.
     pub fn request_stop(&self) {
         self.cells.stop.store(true, Release);
     }

@@ -240,7 +240,8 @@ fn pick_device(host: &cpal::Host, direction: Direction, wanted: &DeviceSelector)
             }
         }
     };
-    found.ok_or_else(not_found)
+    // A host may name a default device it cannot open (ALSA's `default` without a sound card).
+    found.filter(|d| supports(d, direction)).ok_or_else(not_found)
 }
 
 /// Preference among sample formats: float and wide integers first.
@@ -488,50 +489,88 @@ impl LiveDevices {
         };
         let engine_latency_frames = engine.latency_frames();
         let Bridge { mut capture, mut playback, handle } = Bridge::new(engine, &bridge_options)?;
-
-        // On JACK both streams' timestamps come from the server's clock: use it for the time between the
-        // two callbacks too, so scheduling delays of the client threads do not enter the latency figure.
-        // Other hosts give each stream its own time origin: use our clock.
-        let shared_clock = self.is_jack();
         let (clock, errors) = (handle.clone(), handle.clone());
-        let mut promote = options.realtime;
+        let hooks = StreamHooks {
+            now_ns: move || clock.now_ns(),
+            on_error: move |kind, direction| errors.note_error(kind, direction),
+            promote: options.realtime.then(|| {
+                let h = handle.clone();
+                move || h.promote_callback_thread()
+            }),
+        };
+        let (streams, input, output) = self.play_streams(
+            hooks,
+            move |data, time| capture.capture_data(data, time),
+            move |data, time| playback.play_data(data, time),
+        )?;
+        let info = LiveInfo {
+            host: self.host_name().to_string(),
+            sample_rate_hz: rate,
+            input,
+            output,
+            engine_latency_frames,
+            margin_frames: margin,
+            side: options.side,
+        };
+        Ok(LiveStream { streams, handle, info, watch: [Watchdog::new(); 2] })
+    }
+
+    /// Builds the input and the output stream around two callback bodies and starts them (input first),
+    /// then describes both sides. Each body gets the callback's [`CallbackTime`]: `now_ns` from the
+    /// server's clock on JACK (both streams' timestamps come from it, so the client threads' scheduling
+    /// delays stay out of the time between the two callbacks) and from `hooks.now_ns` elsewhere (other
+    /// hosts give each stream its own time origin); the device delay from cpal's timestamps. Allocates.
+    ///
+    /// # Errors
+    /// [`DeviceError::Cpal`] when a stream cannot be built or started.
+    pub(crate) fn play_streams<N, E, P>(
+        &self,
+        hooks: StreamHooks<N, E, P>,
+        mut on_input: impl FnMut(&cpal::Data, CallbackTime) + Send + 'static,
+        mut on_output: impl FnMut(&mut cpal::Data, CallbackTime) + Send + 'static,
+    ) -> Result<(Vec<cpal::Stream>, SideInfo, SideInfo), DeviceError>
+    where
+        N: Fn() -> u64 + Clone + Send + 'static,
+        E: Fn(cpal::ErrorKind, Direction) + Clone + Send + 'static,
+        P: Fn() + Clone + Send + 'static,
+    {
+        let shared_clock = self.is_jack();
+        let StreamHooks { now_ns, on_error, promote } = hooks;
+        let (clock, errors, mut promote_in) = (now_ns.clone(), on_error.clone(), promote.clone());
         let input_stream = self
             .input
             .build_input_stream_raw(
                 self.input_config,
                 self.input_format,
                 move |data: &cpal::Data, info: &cpal::InputCallbackInfo| {
-                    if promote {
-                        promote = false;
-                        clock.promote_callback_thread();
+                    if let Some(p) = promote_in.take() {
+                        p();
                     }
                     let ts = info.timestamp();
                     let delay = ts.callback.saturating_duration_since(ts.capture).as_nanos() as u64;
-                    let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock.now_ns() };
-                    capture.capture_data(data, CallbackTime { now_ns, device_delay_ns: delay });
+                    let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock() };
+                    on_input(data, CallbackTime { now_ns, device_delay_ns: delay });
                 },
-                move |e: cpal::Error| errors.note_error(e.kind(), Direction::Input),
+                move |e: cpal::Error| errors(e.kind(), Direction::Input),
                 Some(BUILD_TIMEOUT),
             )
             .map_err(|source| DeviceError::Cpal { context: "building the input stream".into(), source })?;
-        let (clock, errors) = (handle.clone(), handle.clone());
-        let mut promote = options.realtime;
+        let (clock, errors, mut promote_out) = (now_ns, on_error, promote);
         let output_stream = self
             .output
             .build_output_stream_raw(
                 self.output_config,
                 self.output_format,
                 move |data: &mut cpal::Data, info: &cpal::OutputCallbackInfo| {
-                    if promote {
-                        promote = false;
-                        clock.promote_callback_thread();
+                    if let Some(p) = promote_out.take() {
+                        p();
                     }
                     let ts = info.timestamp();
                     let delay = ts.playback.saturating_duration_since(ts.callback).as_nanos() as u64;
-                    let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock.now_ns() };
-                    playback.play_data(data, CallbackTime { now_ns, device_delay_ns: delay });
+                    let now_ns = if shared_clock { ts.callback.as_nanos() as u64 } else { clock() };
+                    on_output(data, CallbackTime { now_ns, device_delay_ns: delay });
                 },
-                move |e: cpal::Error| errors.note_error(e.kind(), Direction::Output),
+                move |e: cpal::Error| errors(e.kind(), Direction::Output),
                 Some(BUILD_TIMEOUT),
             )
             .map_err(|source| DeviceError::Cpal { context: "building the output stream".into(), source })?;
@@ -552,17 +591,23 @@ impl LiveDevices {
                 },
                 period_frames: stream.buffer_size().ok(),
             };
-        let info = LiveInfo {
-            host: self.host_name().to_string(),
-            sample_rate_hz: rate,
-            input: side(&self.input, &self.input_config, self.input_format, &input_stream),
-            output: side(&self.output, &self.output_config, self.output_format, &output_stream),
-            engine_latency_frames,
-            margin_frames: margin,
-            side: options.side,
-        };
-        Ok(LiveStream { streams: vec![input_stream, output_stream], handle, info, watch: [Watchdog::new(); 2] })
+        let input = side(&self.input, &self.input_config, self.input_format, &input_stream);
+        let output = side(&self.output, &self.output_config, self.output_format, &output_stream);
+        Ok((vec![input_stream, output_stream], input, output))
     }
+
+    /// Device channels of the input and output streams.
+    pub(crate) fn device_channels(&self) -> (usize, usize) {
+        (usize::from(self.input_config.channels), usize::from(self.output_config.channels))
+    }
+}
+
+/// What [`LiveDevices::play_streams`] needs besides the bodies: the clock off JACK, the error callback's
+/// action (atomics only), and the real-time promotion asked on each callback thread's first call.
+pub(crate) struct StreamHooks<N, E, P> {
+    pub(crate) now_ns: N,
+    pub(crate) on_error: E,
+    pub(crate) promote: Option<P>,
 }
 
 /// How the bridge runs once the devices are open.
@@ -670,7 +715,7 @@ impl Drop for LiveStream {
 
 /// Pauses and drops streams on a helper thread, waiting at most a second: with a dead JACK server a
 /// client's deactivation may not return.
-fn release(streams: Vec<cpal::Stream>) {
+pub(crate) fn release(streams: Vec<cpal::Stream>) {
     if streams.is_empty() {
         return;
     }

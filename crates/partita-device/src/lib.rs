@@ -9,6 +9,9 @@
 //! - **Room measurement on JACK** (feature `jack`): `JackCapture`, one client that plays a prepared
 //!   signal and records an input in the same callback, so the loop delay is exact in frames; what
 //!   `partita capture` uses; see the `capture` module's docs.
+//! - **Room measurement on split devices** (any cpal host): `SplitCapture`, one stream playing and one
+//!   recording, each on its own clock; the takes are aligned and the clock skew measured afterwards
+//!   (`partita_room::align`); see the `split` module's docs.
 //! - **Other hosts, through cpal**: an input stream and an output stream (cpal has no duplex stream)
 //!   bridged by a `ringbuf` SPSC queue, the engine run in one of the two callbacks. Described below.
 //!
@@ -94,6 +97,7 @@ mod error;
 mod host;
 mod realtime;
 pub mod safety;
+mod split;
 mod stats;
 mod timing;
 
@@ -101,9 +105,7 @@ pub use bridge::{
     Bridge, BridgeHandle, BridgeOptions, CallbackTime, CaptureSide, EngineSide, PlaybackSide, MAX_ENGINE_CHANNELS,
 };
 #[cfg(feature = "jack")]
-pub use capture::{
-    Capture, CaptureInfo, CaptureOptions, CaptureStream, JackCapture, PortChoice, PortLatency, STOP_FADE_MS,
-};
+pub use capture::{Capture, CaptureInfo, CaptureOptions, CaptureStream, JackCapture, PortChoice, PortLatency};
 pub use channels::ChannelMap;
 pub use drift::{Correction, DriftMode, DriftOptions, DriftTracker, RateController};
 #[cfg(feature = "jack")]
@@ -115,6 +117,10 @@ pub use host::{
 };
 pub use realtime::CALLBACK_PRIORITY;
 pub use safety::{Ceiling, MuteReason, SafetyOptions, SafetyStage};
+pub use split::{
+    Recorder, SignalPlayer, SplitCapture, SplitHandle, SplitInfo, SplitOptions, SplitParts, SplitRecording,
+    SplitStream, STOP_FADE_MS,
+};
 pub use stats::{Fault, Peaks, Stats};
 pub use timing::CallbackTimes;
 
