@@ -111,57 +111,9 @@ fn band_limited(h: &[f32], n: usize) -> Vec<f32> {
     out.iter().map(|&v| (v / n as f64) as f32).collect()
 }
 
-#[test]
-fn capture_recovers_a_known_room_and_its_loop_delay() {
-    let _serial = serial();
-    let Some(server) = jack_or_skip("capture_recovers_a_known_room_and_its_loop_delay", PERIOD) else { return };
-    let dir = scratch("recover");
-    // The room client connects to this server too.
-    server.make_default();
-    let h = known_room();
-    let (room, room_latency) = start_room(&h);
-    // The IR goes into a folder that does not exist yet.
-    let ir_path = dir.join("new").join("ir.wav");
-    let run = || {
-        let started = Instant::now();
-        let out = partita(&server.name)
-            .args(["capture", "--host", "jack", "--connect-output", "room:in_1", "--connect-input", "room:out_1"])
-            .args(["--duration-s", "2", "--silence-s", "1", "--takes", "2", "--pre-onset-ms", "100", "--json", "-o"])
-            .arg(&ir_path)
-            .output()
-            .unwrap();
-        let (json, err) = text(&out);
-        eprintln!("capture took {:?}:\n{err}", started.elapsed());
-        assert!(out.status.success(), "{err}");
-        (json, err)
-    };
-    let (mut json, mut err) = run();
-    if err.contains("warning") {
-        // A non-real-time server on a busy machine can miss a cycle, which can break a take (the idle dummy
-        // server reports xruns on these VMs, which capture only notes); one more run must be clean.
-        eprintln!("WARNING: capture warned; running again");
-        (json, err) = run();
-    }
-    drop(room);
-    assert!(err.contains("Cautions") && err.contains("hearing protection"), "{err}");
-    assert!(!err.contains("warning"), "{err}");
-    let v: serde_json::Value = serde_json::from_str(&json).unwrap();
-    eprintln!("take differences {}", serde_json::to_string(&v["take_difference_db"]).unwrap());
-
-    // The loop delay: the response's delay, the room engine's latency and one period for the cycle.
-    let expected = ROOM_DELAY + room_latency + PERIOD as usize;
-    eprintln!(
-        "loop delay reported {} frames, expected {expected} = {ROOM_DELAY} + engine {room_latency} + period {PERIOD}; \
-         JACK reports capture {} + playback {}",
-        v["loop_delay_frames"], v["jack_capture_latency_frames"], v["jack_playback_latency_frames"]
-    );
-    assert_eq!(v["loop_delay_frames"].as_u64(), Some(expected as u64), "{v}");
-    assert_eq!(v["takes"], 2);
-    // Identical takes (no noise in the graph): far below the warning's -20 dB.
-    for d in v["take_difference_db"].as_array().unwrap() {
-        assert!(d.as_f64().is_none_or(|d| d < -60.0), "{d}");
-    }
-
+/// The IR `capture` wrote against the known response `h`, placed where the command's JSON `v` says (its
+/// loop delay and the IR's start): its spectrum, its early and late energy per octave, and its analysis.
+fn check_recovered(v: &serde_json::Value, ir_path: &Path, h: &[f32]) {
     // The recovered response against the known one, aligned by the IR's reported start. From 100 Hz to
     // f2 / 2 = 10 kHz: within the bound of the deconvolution's own test (crates/partita-room/tests/measurement.rs:
     // 0.15 dB and 0.5 degrees for the inverse filter), which holds here because the transport adds nothing
@@ -170,11 +122,12 @@ fn capture_recovers_a_known_room_and_its_loop_delay() {
     // onset search reaches no further back than halfway to the 2nd harmonic's response) and so cuts the
     // pre-ringing of the sweep's faded low band edge, which the reference test keeps (it compares the raw
     // response over +-0.5 s). Deterministic: no noise in the graph.
-    let got = read_wav(&ir_path).unwrap();
+    let got = read_wav(ir_path).unwrap();
     assert_eq!((got.channel_count(), got.sample_rate_hz), (1, RATE));
     let g = &got.channels[0];
     let start = v["ir_start_lag_frames"].as_i64().unwrap();
-    let shift = (room_latency + PERIOD as usize) as i64;
+    // Where h's first frame lies after the sweep's start, by the command's own account.
+    let shift = v["loop_delay_frames"].as_i64().unwrap() - ROOM_DELAY as i64;
     let want: Vec<f32> = (0..g.len() as i64)
         .map(|j| usize::try_from(j + start - shift).ok().and_then(|i| h.get(i)).copied().unwrap_or(0.0))
         .collect();
@@ -232,7 +185,7 @@ fn capture_recovers_a_known_room_and_its_loop_delay() {
     // wherever the reference's value is unflagged.
     let options = AnalysisOptions::default();
     let fs = f64::from(RATE);
-    let (a, b) = (analyze(g, fs, &options).unwrap(), analyze(&band_limited(&h, n), fs, &options).unwrap());
+    let (a, b) = (analyze(g, fs, &options).unwrap(), analyze(&band_limited(h, n), fs, &options).unwrap());
     let (mut worst, mut compared) = ([0.0f64; 2], 0);
     for (x, y) in std::iter::once(&a.broadband).chain(&a.bands).zip(std::iter::once(&b.broadband).chain(&b.bands)) {
         let mut row = String::new();
@@ -258,6 +211,160 @@ fn capture_recovers_a_known_room_and_its_loop_delay() {
     assert!(worst[0] < 0.01 && worst[1] < 0.1, "{worst:?}");
     // The table the text mode prints is analyze's; the JSON carries the same channels.
     assert_eq!(v["channels"][0]["bands"].as_array().unwrap().len(), 8);
+}
+
+#[test]
+fn capture_recovers_a_known_room_and_its_loop_delay() {
+    let _serial = serial();
+    let Some(server) = jack_or_skip("capture_recovers_a_known_room_and_its_loop_delay", PERIOD) else { return };
+    let dir = scratch("recover");
+    // The room client connects to this server too.
+    server.make_default();
+    let h = known_room();
+    let (room, room_latency) = start_room(&h);
+    // The IR goes into a folder that does not exist yet.
+    let ir_path = dir.join("new").join("ir.wav");
+    let run = || {
+        let started = Instant::now();
+        let out = partita(&server.name)
+            .args(["capture", "--host", "jack", "--connect-output", "room:in_1", "--connect-input", "room:out_1"])
+            .args(["--duration-s", "2", "--silence-s", "1", "--takes", "2", "--pre-onset-ms", "100", "--json", "-o"])
+            .arg(&ir_path)
+            .output()
+            .unwrap();
+        let (json, err) = text(&out);
+        eprintln!("capture took {:?}:\n{err}", started.elapsed());
+        assert!(out.status.success(), "{err}");
+        (json, err)
+    };
+    let (mut json, mut err) = run();
+    if err.contains("warning") {
+        // A non-real-time server on a busy machine can miss a cycle, which can break a take (the idle dummy
+        // server reports xruns on these VMs, which capture only notes); one more run must be clean.
+        eprintln!("WARNING: capture warned; running again");
+        (json, err) = run();
+    }
+    drop(room);
+    assert!(err.contains("Cautions") && err.contains("hearing protection"), "{err}");
+    assert!(!err.contains("warning"), "{err}");
+    let v: serde_json::Value = serde_json::from_str(&json).unwrap();
+    eprintln!("take differences {}", serde_json::to_string(&v["take_difference_db"]).unwrap());
+
+    // The loop delay: the response's delay, the room engine's latency and one period for the cycle.
+    let expected = ROOM_DELAY + room_latency + PERIOD as usize;
+    eprintln!(
+        "loop delay reported {} frames, expected {expected} = {ROOM_DELAY} + engine {room_latency} + period {PERIOD}; \
+         JACK reports capture {} + playback {}",
+        v["loop_delay_frames"], v["jack_capture_latency_frames"], v["jack_playback_latency_frames"]
+    );
+    assert_eq!(v["loop_delay_frames"].as_u64(), Some(expected as u64), "{v}");
+    assert_eq!(v["takes"], 2);
+    // Identical takes (no noise in the graph): far below the warning's -20 dB.
+    for d in v["take_difference_db"].as_array().unwrap() {
+        assert!(d.as_f64().is_none_or(|d| d < -60.0), "{d}");
+    }
+
+    check_recovered(&v, &ir_path, &h);
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// The split-device path (`--host jack --split`: two cpal clients, `cpal_client_<pid>_out` playing and
+/// `cpal_client_<pid>_in` recording, as on any host without a duplex client), through the same room. The
+/// test connects the room between them from the outside once the command reports its streams (within the
+/// half-second lead-in before the first take). Output -> room -> input is a chain, not a cycle, so JACK runs
+/// all three in one period: the loop delay is the response's delay + the room engine's latency, and the
+/// command can only estimate it from the two streams' callback times, which cpal takes from JACK's cycle
+/// clock: a filtered estimate of the dummy driver's wake-ups, so a one-period offset between the streams'
+/// first callbacks reads a few frames off (1021 frames for 1024 in one run). Checked within 128 frames: an
+/// eighth of the period the command says it is good for, and far from the errors of a wrong sign or a
+/// missing offset (a period or more). One clock: the skew within 0.5 ppm (1/20 of the warning's 10 ppm)
+/// and the takes evenly spaced (residual under 0.1 frame). The recovered IR and its analysis meet the same
+/// bounds as the one-client path's.
+#[test]
+fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
+    use std::io::{BufRead, BufReader};
+    let _serial = serial();
+    let Some(server) = jack_or_skip("capture_on_separate_streams_recovers_the_room_and_finds_one_clock", PERIOD) else {
+        return;
+    };
+    let dir = scratch("split");
+    server.make_default();
+    let h = known_room();
+    let (room, room_latency) = start_room(&h);
+    let ir_path = dir.join("ir.wav");
+    let jack = |tool: &str, from: &str, to: &str| {
+        Command::new(tool)
+            .args([from, to])
+            .env("JACK_DEFAULT_SERVER", &server.name)
+            .env("JACK_NO_START_SERVER", "1")
+            .status()
+            .is_ok_and(|s| s.success())
+    };
+    let run = || {
+        let mut child = partita(&server.name)
+            .args(["capture", "--host", "jack", "--split", "--duration-s", "2", "--silence-s", "1", "--takes", "2"])
+            .args(["--pre-onset-ms", "100", "--json", "-o"])
+            .arg(&ir_path)
+            .stderr(Stdio::piped())
+            .stdout(Stdio::piped())
+            .spawn()
+            .unwrap();
+        let base = format!("cpal_client_{}", child.id());
+        let mut err = BufReader::new(child.stderr.take().unwrap());
+        let (mut log, mut line) = (String::new(), String::new());
+        while err.read_line(&mut line).unwrap_or(0) > 0 {
+            log.push_str(&line);
+            if line.contains("separate streams") {
+                break;
+            }
+            line.clear();
+        }
+        let connected = Instant::now();
+        let (out_port, in_port) = (format!("{base}_out:out_0"), format!("{base}_in:in_0"));
+        let wired = std::thread::scope(|s| {
+            let a = s.spawn(|| jack("jack_connect", &out_port, "room:in_1"));
+            let b = s.spawn(|| jack("jack_connect", "room:out_1", &in_port));
+            a.join().unwrap() && b.join().unwrap()
+        });
+        eprintln!("connected the room in {:?}", connected.elapsed());
+        let mut rest = String::new();
+        let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+        log.push_str(&rest);
+        let out = child.wait_with_output().unwrap();
+        eprintln!("{log}");
+        assert!(wired, "jack_connect {out_port} / {in_port}: {log}");
+        assert!(out.status.success(), "{log}");
+        (String::from_utf8(out.stdout).unwrap(), log)
+    };
+    let (mut json, mut log) = run();
+    if log.contains("warning") {
+        // A late connection or a missed cycle on a busy machine breaks a take; one more run must be clean.
+        eprintln!("WARNING: capture warned; running again");
+        (json, log) = run();
+    }
+    drop(room);
+    assert!(!log.contains("warning"), "{log}");
+    assert!(log.contains("separate streams (no drift correction)"), "{log}");
+    let v: serde_json::Value = serde_json::from_str(&json).unwrap();
+    assert_eq!(v["path"], "split");
+    assert_eq!(v["takes"], 2);
+    assert_eq!(v["loop_delay_exact"], false);
+    let skew = v["clock_skew_ppm"].as_f64().unwrap();
+    let residual = v["take_spacing_residual_frames"].as_f64().unwrap();
+    let expected = (ROOM_DELAY + room_latency) as i64;
+    let delay = v["loop_delay_frames"].as_i64().unwrap();
+    eprintln!(
+        "split: skew {skew:+.4} ppm, take spacing residual {residual:.4} frames; loop delay {delay} frames (expected \
+         {expected} = {ROOM_DELAY} + engine {room_latency}); start offset {} frames; take differences {}",
+        v["stream_start_offset_frames"], v["take_difference_db"]
+    );
+    assert!(skew.abs() < 0.5, "{skew}");
+    assert!(residual < 0.1, "{residual}");
+    assert!((delay - expected).abs() <= 128, "{delay} against {expected}");
+    for d in v["take_difference_db"].as_array().unwrap() {
+        assert!(d.as_f64().is_none_or(|d| d < -60.0), "{d}");
+    }
+    check_recovered(&v, &ir_path, &h);
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -314,7 +421,7 @@ fn capture_warns_when_the_takes_differ() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
-/// Ctrl-C mid-take: the command stops within a second (the output fades out over 20 ms, checked on the port
+/// Ctrl-C mid-take, on both paths: the command stops within a second (the output fades out over 20 ms, checked on the port
 /// in partita-device's tests/capture.rs), says that no complete take exists, writes nothing and exits 1.
 #[test]
 fn ctrl_c_mid_take_stops_at_once_and_writes_nothing() {
@@ -323,47 +430,58 @@ fn ctrl_c_mid_take_stops_at_once_and_writes_nothing() {
     let Some(server) = jack_or_skip("ctrl_c_mid_take_stops_at_once_and_writes_nothing", PERIOD) else { return };
     let dir = scratch("ctrl-c");
     let ir_path = dir.join("ir.wav");
-    let mut child = partita(&server.name)
-        .args(["capture", "--host", "jack", "--duration-s", "10", "-o"])
-        .arg(&ir_path)
-        .stderr(Stdio::piped())
-        .stdout(Stdio::null())
-        .spawn()
-        .unwrap();
-    let mut err = BufReader::new(child.stderr.take().unwrap());
-    let (mut log, mut line) = (String::new(), String::new());
-    while err.read_line(&mut line).unwrap_or(0) > 0 {
-        log.push_str(&line);
-        if line.starts_with("take 1 of 1") {
-            break;
+    // The one-client path (one take by default), then separate streams (two takes by default, after a
+    // half-second lead-in).
+    for (path, takes) in [(&["--host", "jack"][..], 1), (&["--host", "jack", "--split"][..], 2)] {
+        let mut child = partita(&server.name)
+            .arg("capture")
+            .args(path)
+            .args(["--duration-s", "10", "-o"])
+            .arg(&ir_path)
+            .stderr(Stdio::piped())
+            .stdout(Stdio::null())
+            .spawn()
+            .unwrap();
+        let mut err = BufReader::new(child.stderr.take().unwrap());
+        let (mut log, mut line) = (String::new(), String::new());
+        while err.read_line(&mut line).unwrap_or(0) > 0 {
+            log.push_str(&line);
+            if line.starts_with(&format!("take 1 of {takes}")) {
+                break;
+            }
+            line.clear();
         }
-        line.clear();
+        if takes == 1 {
+            assert!(
+                log.contains("system:playback_1") && log.contains("system:capture_1"),
+                "physical ports by default: {log}"
+            );
+        }
+        std::thread::sleep(Duration::from_millis(1000));
+        let sent = Instant::now();
+        // SAFETY: kill(2) on our own child's pid with a valid signal number.
+        unsafe {
+            libc::kill(child.id() as libc::pid_t, libc::SIGINT);
+        }
+        let mut rest = String::new();
+        let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+        let status = child.wait().unwrap();
+        let took = sent.elapsed();
+        log.push_str(&rest);
+        eprintln!("{path:?}: stopped {took:?} after SIGINT:\n{log}");
+        assert_eq!(status.code(), Some(1), "{log}");
+        assert!(took < Duration::from_secs(1), "took {took:?}");
+        let last = log.lines().last().unwrap_or_default();
+        assert!(last.starts_with(&format!("partita: error: stopped during take 1 of {takes}")), "{last}");
+        assert!(last.contains("fade") && last.contains("nothing written"), "{last}");
+        assert!(!ir_path.exists());
     }
-    assert!(log.contains("system:playback_1") && log.contains("system:capture_1"), "physical ports by default: {log}");
-    std::thread::sleep(Duration::from_millis(500));
-    let sent = Instant::now();
-    // SAFETY: kill(2) on our own child's pid with a valid signal number.
-    unsafe {
-        libc::kill(child.id() as libc::pid_t, libc::SIGINT);
-    }
-    let mut rest = String::new();
-    let _ = std::io::Read::read_to_string(&mut err, &mut rest);
-    let status = child.wait().unwrap();
-    let took = sent.elapsed();
-    log.push_str(&rest);
-    eprintln!("stopped {took:?} after SIGINT:\n{log}");
-    assert_eq!(status.code(), Some(1), "{log}");
-    assert!(took < Duration::from_secs(1), "took {took:?}");
-    let last = log.lines().last().unwrap_or_default();
-    assert!(last.starts_with("partita: error: stopped during take 1 of 1"), "{last}");
-    assert!(last.contains("fade") && last.contains("nothing written"), "{last}");
-    assert!(!ir_path.exists());
     let _ = std::fs::remove_dir_all(&dir);
 }
 
 /// Refusals that need no server, and no server: one clear line each, exit 1, nothing written.
 #[test]
-fn capture_refuses_loud_levels_other_hosts_and_a_missing_server() {
+fn capture_refuses_loud_levels_wrong_options_missing_devices_and_a_missing_server() {
     let _serial = serial();
     let dir = scratch("refuse");
     let ir = dir.join("ir.wav");
@@ -377,10 +495,23 @@ fn capture_refuses_loud_levels_other_hosts_and_a_missing_server() {
         &partita(none).args(["capture", "--host", "jack", "--level-dbfs", "-3", "-o", s(&ir)]).output().unwrap(),
     );
     assert!(l.starts_with("partita: error: refusing a sweep at -3 dBFS") && l.contains("--force"), "{l}");
-    let l = last_line(&partita(none).args(["capture", "-o", s(&ir)]).output().unwrap());
-    assert!(l.contains("only JACK") && l.contains("--host jack"), "{l}");
-    let l = last_line(&partita(none).args(["capture", "--host", "alsa", "-o", s(&ir)]).output().unwrap());
-    assert!(l.contains("only JACK") && l.contains("--host alsa"), "{l}");
+    // Separate streams: a device that does not exist, and the options of the other path.
+    let l = last_line(
+        &partita(none)
+            .args(["capture", "--host", "alsa", "--input-device", "no-such-mic", "-o", s(&ir)])
+            .output()
+            .unwrap(),
+    );
+    assert!(l.contains("no input device `no-such-mic` on host ALSA"), "{l}");
+    let l =
+        last_line(&partita(none).args(["capture", "--host", "alsa", "--no-connect", "-o", s(&ir)]).output().unwrap());
+    assert!(l.contains("--no-connect applies to the JACK client only"), "{l}");
+    let l = last_line(&partita(none).args(["capture", "--split", "-o", s(&ir)]).output().unwrap());
+    assert!(l.contains("--split applies to JACK"), "{l}");
+    let l = last_line(
+        &partita(none).args(["capture", "--host", "jack", "--rate", "44100", "-o", s(&ir)]).output().unwrap(),
+    );
+    assert!(l.contains("--rate applies to separate streams"), "{l}");
     let l = last_line(&partita(none).args(["capture", "--host", "jack", "-o", s(&ir)]).output().unwrap());
     assert!(l.contains("is the JACK server running") && l.contains(none), "{l}");
     // With --force a loud level gets past the refusal (and then finds no server).

@@ -8,7 +8,7 @@ pub mod plan;
 pub mod render;
 pub mod sweep;
 
-#[cfg(feature = "jack")]
+#[cfg(feature = "live")]
 pub mod capture;
 #[cfg(feature = "live")]
 pub mod devices;
@@ -36,20 +36,19 @@ pub mod monitor {
     }
 }
 
-/// `partita capture` in a build without JACK: says how to get it.
-#[cfg(not(feature = "jack"))]
+/// `partita capture` in a build without live audio: says how to get it.
+#[cfg(not(feature = "live"))]
 pub mod capture {
-    /// Arguments of `partita capture` (accepted and ignored: JACK is not in this build).
+    /// Arguments of `partita capture` (accepted and ignored: live audio is not in this build).
     #[derive(Debug, clap::Args)]
     pub struct CaptureArgs {
         #[arg(trailing_var_arg = true, allow_hyphen_values = true, hide = true)]
         args: Vec<String>,
     }
 
-    /// Fails with how to build with JACK.
+    /// Fails with how to build with live audio.
     pub fn run(_: CaptureArgs) -> super::CmdResult {
-        Err("this build has no JACK: `partita capture` needs it; rebuild with `cargo build --release --features jack` \
-             (needs libasound2-dev and libjack-jackd2-dev), or use `partita sweep` and `partita deconvolve`"
+        Err(format!("{}; or use `partita sweep` and `partita deconvolve` with other playback gear", super::NO_LIVE)
             .into())
     }
 }
