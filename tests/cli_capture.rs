@@ -46,6 +46,40 @@ fn s(p: &Path) -> &str {
     p.to_str().unwrap()
 }
 
+/// A running `partita` whose stderr is read up to a marker line.
+struct Running {
+    child: std::process::Child,
+    err: std::io::BufReader<std::process::ChildStderr>,
+    log: String,
+}
+
+impl Running {
+    /// Spawns `cmd` (stdout piped, stderr read here) and reads its stderr up to and including the first
+    /// line that `marker` accepts (or its end).
+    fn until(cmd: &mut Command, marker: impl Fn(&str) -> bool) -> Self {
+        use std::io::BufRead;
+        let mut child = cmd.stderr(Stdio::piped()).stdout(Stdio::piped()).spawn().unwrap();
+        let mut err = std::io::BufReader::new(child.stderr.take().unwrap());
+        let (mut log, mut line) = (String::new(), String::new());
+        while err.read_line(&mut line).unwrap_or(0) > 0 {
+            log.push_str(&line);
+            if marker(&line) {
+                break;
+            }
+            line.clear();
+        }
+        Self { child, err, log }
+    }
+
+    /// Waits for the end: the whole stderr log, and the output (stdout; its stderr is in the log).
+    fn finish(mut self) -> (String, Output) {
+        let mut rest = String::new();
+        let _ = std::io::Read::read_to_string(&mut self.err, &mut rest);
+        self.log.push_str(&rest);
+        (self.log, self.child.wait_with_output().unwrap())
+    }
+}
+
 /// The known response: `ROOM_DELAY` frames of nothing, a direct sound of 1, then a decaying noise tail
 /// (T60 0.2 s, 0.3 s long, at 0.05 of the direct sound: 90 dB of decay by its end).
 fn known_room() -> Vec<f32> {
@@ -282,7 +316,6 @@ fn capture_recovers_a_known_room_and_its_loop_delay() {
 /// bounds as the one-client path's.
 #[test]
 fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
-    use std::io::{BufRead, BufReader};
     let _serial = serial();
     let Some(server) = jack_or_skip("capture_on_separate_streams_recovers_the_room_and_finds_one_clock", PERIOD) else {
         return;
@@ -301,24 +334,12 @@ fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
             .is_ok_and(|s| s.success())
     };
     let run = || {
-        let mut child = partita(&server.name)
-            .args(["capture", "--host", "jack", "--split", "--duration-s", "2", "--silence-s", "1", "--takes", "2"])
+        let mut cmd = partita(&server.name);
+        cmd.args(["capture", "--host", "jack", "--split", "--duration-s", "2", "--silence-s", "1", "--takes", "2"])
             .args(["--pre-onset-ms", "100", "--json", "-o"])
-            .arg(&ir_path)
-            .stderr(Stdio::piped())
-            .stdout(Stdio::piped())
-            .spawn()
-            .unwrap();
-        let base = format!("cpal_client_{}", child.id());
-        let mut err = BufReader::new(child.stderr.take().unwrap());
-        let (mut log, mut line) = (String::new(), String::new());
-        while err.read_line(&mut line).unwrap_or(0) > 0 {
-            log.push_str(&line);
-            if line.contains("separate streams") {
-                break;
-            }
-            line.clear();
-        }
+            .arg(&ir_path);
+        let running = Running::until(&mut cmd, |l| l.contains("separate streams"));
+        let base = format!("cpal_client_{}", running.child.id());
         let connected = Instant::now();
         let (out_port, in_port) = (format!("{base}_out:out_0"), format!("{base}_in:in_0"));
         let wired = std::thread::scope(|s| {
@@ -327,10 +348,7 @@ fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
             a.join().unwrap() && b.join().unwrap()
         });
         eprintln!("connected the room in {:?}", connected.elapsed());
-        let mut rest = String::new();
-        let _ = std::io::Read::read_to_string(&mut err, &mut rest);
-        log.push_str(&rest);
-        let out = child.wait_with_output().unwrap();
+        let (log, out) = running.finish();
         eprintln!("{log}");
         assert!(wired, "jack_connect {out_port} / {in_port}: {log}");
         assert!(out.status.success(), "{log}");
@@ -374,30 +392,19 @@ fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
 /// that half, 0 dB: far above the -20 dB bound, a warning; the IR is still written.
 #[test]
 fn capture_warns_when_the_takes_differ() {
-    use std::io::{BufRead, BufReader};
     let _serial = serial();
     let Some(server) = jack_or_skip("capture_warns_when_the_takes_differ", PERIOD) else { return };
     let dir = scratch("differ");
     server.make_default();
     let (room, _) = start_room(&known_room());
     let ir_path = dir.join("ir.wav");
-    let mut child = partita(&server.name)
-        .args(["capture", "--host", "jack", "--connect-output", "room:in_1", "--connect-input", "room:out_1"])
-        .args(["--duration-s", "1", "--silence-s", "0.5", "--takes", "2", "--json", "-o"])
-        .arg(&ir_path)
-        .stderr(Stdio::piped())
-        .stdout(Stdio::piped())
-        .spawn()
-        .unwrap();
-    let mut err = BufReader::new(child.stderr.take().unwrap());
-    let (mut log, mut line) = (String::new(), String::new());
-    while err.read_line(&mut line).unwrap_or(0) > 0 {
-        log.push_str(&line);
-        if line.starts_with("take 2 of 2") {
-            break;
-        }
-        line.clear();
-    }
+    let running = Running::until(
+        partita(&server.name)
+            .args(["capture", "--host", "jack", "--connect-output", "room:in_1", "--connect-input", "room:out_1"])
+            .args(["--duration-s", "1", "--silence-s", "0.5", "--takes", "2", "--json", "-o"])
+            .arg(&ir_path),
+        |l| l.starts_with("take 2 of 2"),
+    );
     let status = Command::new("jack_disconnect")
         .args(["room:out_1", "partita-capture:in_1"])
         .env("JACK_DEFAULT_SERVER", &server.name)
@@ -405,10 +412,7 @@ fn capture_warns_when_the_takes_differ() {
         .status()
         .expect("jack_disconnect runs");
     assert!(status.success());
-    let mut rest = String::new();
-    let _ = std::io::Read::read_to_string(&mut err, &mut rest);
-    log.push_str(&rest);
-    let out = child.wait_with_output().unwrap();
+    let (log, out) = running.finish();
     drop(room);
     eprintln!("{log}");
     assert!(out.status.success(), "{log}");
@@ -425,7 +429,6 @@ fn capture_warns_when_the_takes_differ() {
 /// in partita-device's tests/capture.rs), says that no complete take exists, writes nothing and exits 1.
 #[test]
 fn ctrl_c_mid_take_stops_at_once_and_writes_nothing() {
-    use std::io::{BufRead, BufReader};
     let _serial = serial();
     let Some(server) = jack_or_skip("ctrl_c_mid_take_stops_at_once_and_writes_nothing", PERIOD) else { return };
     let dir = scratch("ctrl-c");
@@ -433,24 +436,13 @@ fn ctrl_c_mid_take_stops_at_once_and_writes_nothing() {
     // The one-client path (one take by default), then separate streams (two takes by default, after a
     // half-second lead-in).
     for (path, takes) in [(&["--host", "jack"][..], 1), (&["--host", "jack", "--split"][..], 2)] {
-        let mut child = partita(&server.name)
-            .arg("capture")
-            .args(path)
-            .args(["--duration-s", "10", "-o"])
-            .arg(&ir_path)
-            .stderr(Stdio::piped())
-            .stdout(Stdio::null())
-            .spawn()
-            .unwrap();
-        let mut err = BufReader::new(child.stderr.take().unwrap());
-        let (mut log, mut line) = (String::new(), String::new());
-        while err.read_line(&mut line).unwrap_or(0) > 0 {
-            log.push_str(&line);
-            if line.starts_with(&format!("take 1 of {takes}")) {
-                break;
-            }
-            line.clear();
-        }
+        let marker = format!("take 1 of {takes}");
+        let running = Running::until(
+            partita(&server.name).arg("capture").args(path).args(["--duration-s", "10", "-o"]).arg(&ir_path),
+            |l| l.starts_with(&marker),
+        );
+        let pid = running.child.id();
+        let log = running.log.clone();
         if takes == 1 {
             assert!(
                 log.contains("system:playback_1") && log.contains("system:capture_1"),
@@ -461,13 +453,10 @@ fn ctrl_c_mid_take_stops_at_once_and_writes_nothing() {
         let sent = Instant::now();
         // SAFETY: kill(2) on our own child's pid with a valid signal number.
         unsafe {
-            libc::kill(child.id() as libc::pid_t, libc::SIGINT);
+            libc::kill(pid as libc::pid_t, libc::SIGINT);
         }
-        let mut rest = String::new();
-        let _ = std::io::Read::read_to_string(&mut err, &mut rest);
-        let status = child.wait().unwrap();
-        let took = sent.elapsed();
-        log.push_str(&rest);
+        let (log, out) = running.finish();
+        let (status, took) = (out.status, sent.elapsed());
         eprintln!("{path:?}: stopped {took:?} after SIGINT:\n{log}");
         assert_eq!(status.code(), Some(1), "{log}");
         assert!(took < Duration::from_secs(1), "took {took:?}");

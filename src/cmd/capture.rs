@@ -596,11 +596,6 @@ fn record_split(
     let rate = devices.sample_rate_hz();
     let mut stream = devices.start(signal, ceiling, lead_frames + take_frames * takes + tail_frames)?;
     let info = stream.info().clone();
-    let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
-        (Some(p), _) => format!("{p} frames"),
-        (None, Some(r)) => format!("{r} frames (requested)"),
-        (None, None) => "host default".to_string(),
-    };
     eprintln!(
         "{} at {rate} Hz, separate streams (no drift correction): sweep -> `{}` channel {output_channel} of {} ({}, \
          period {}), recording <- `{}` channel {input_channel} of {} ({}, period {}); Ctrl-C stops with a \
@@ -609,11 +604,11 @@ fn record_split(
         info.output.device,
         info.output.channels,
         info.output.format,
-        period(&info.output),
+        info.output.period_text(),
         info.input.device,
         info.input.channels,
         info.input.format,
-        period(&info.input)
+        info.input.period_text()
     );
     let handle = stream.handle().clone();
     {

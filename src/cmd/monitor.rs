@@ -751,11 +751,6 @@ impl Opener<'_> {
             };
             let stream = devices.start(built.engine, &stream_options)?;
             let info = stream.info().clone();
-            let period = |s: &partita_device::SideInfo| match (s.period_frames, s.requested_frames) {
-                (Some(p), _) => format!("{p} frames"),
-                (None, Some(r)) => format!("{r} frames (requested)"),
-                (None, None) => "host default".to_string(),
-            };
             eprintln!(
                 "monitor: {} at {} Hz; in `{}` ({} ch {}, period {}) -> out `{}` ({} ch {}, period {})",
                 info.host,
@@ -763,11 +758,11 @@ impl Opener<'_> {
                 info.input.device,
                 info.input.channels,
                 info.input.format,
-                period(&info.input),
+                info.input.period_text(),
                 info.output.device,
                 info.output.channels,
                 info.output.format,
-                period(&info.output)
+                info.output.period_text()
             );
             let route = Route {
                 host: info.host.clone(),

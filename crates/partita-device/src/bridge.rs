@@ -778,6 +778,11 @@ impl BridgeHandle {
         self.shared.snapshot(self.engine.late_results(), self.engine.worker_cpu_seconds())
     }
 
+    /// The counters the callbacks write.
+    pub(crate) fn cells(&self) -> &BridgeCells {
+        &self.shared
+    }
+
     /// Input and output peaks since the last call (for a meter).
     pub fn take_peaks(&self) -> Peaks {
         self.shared.take_peaks()

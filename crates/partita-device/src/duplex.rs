@@ -466,6 +466,7 @@ impl JackDuplex {
             watch: Watchdog::new(),
             rebuild_error: None,
         };
+        stream.settle_latency();
         stream.record_latency();
         Ok(stream)
     }
@@ -501,6 +502,9 @@ impl DuplexLatency {
         self.capture_frames + self.engine_frames + self.playback_frames
     }
 }
+
+/// The longest [`JackDuplex::start`] waits for JACK to recompute the latencies of new connections.
+const LATENCY_SETTLE: std::time::Duration = std::time::Duration::from_millis(500);
 
 /// A running duplex JACK client. Dropping it closes the client (with a bounded wait, so a dead server
 /// cannot hang the caller).
@@ -544,6 +548,32 @@ impl DuplexStream {
             capture_frames: capture.unwrap_or(0),
             engine_frames: engine,
             playback_frames: playback.unwrap_or(0),
+        }
+    }
+
+    /// After connecting: waits until the server has recomputed our ports' latencies for the connections
+    /// just made, so the figures read at start are theirs (the server does it after the connections, on its
+    /// own thread, and under load a read right after connecting can come first). Settled means the same figures
+    /// twice 20 ms apart, nonzero on each side that has connections; at most [`LATENCY_SETTLE`].
+    fn settle_latency(&self) {
+        let (ins, outs) = {
+            let mine = format!("{}:", self.info.client);
+            let c = &self.info.connections;
+            (c.iter().any(|(_, b)| b.starts_with(&mine)), c.iter().any(|(a, _)| a.starts_with(&mine)))
+        };
+        if !ins && !outs {
+            return;
+        }
+        let deadline = std::time::Instant::now() + LATENCY_SETTLE;
+        let mut last = self.latency();
+        while std::time::Instant::now() < deadline {
+            std::thread::sleep(std::time::Duration::from_millis(20));
+            let now = self.latency();
+            let filled = (!ins || now.capture_frames > 0) && (!outs || now.playback_frames > 0);
+            if now == last && filled {
+                break;
+            }
+            last = now;
         }
     }
 

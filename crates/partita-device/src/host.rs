@@ -346,6 +346,17 @@ pub struct SideInfo {
     pub period_frames: Option<u32>,
 }
 
+impl SideInfo {
+    /// The period for a log line: the host's figure, else the one asked for, else "host default".
+    pub fn period_text(&self) -> String {
+        match (self.period_frames, self.requested_frames) {
+            (Some(p), _) => format!("{p} frames"),
+            (None, Some(r)) => format!("{r} frames (requested)"),
+            (None, None) => "host default".to_string(),
+        }
+    }
+}
+
 /// Devices opened and configured, before the engine exists (its IR must be resampled to
 /// [`sample_rate_hz`](Self::sample_rate_hz)).
 pub struct LiveDevices {
@@ -684,18 +695,7 @@ impl LiveStream {
     /// The fault that ended the stream's usefulness, if any: one the host reported through the error
     /// callback, or a stall the watchdog found (no callback for a second). Call it a few times a second.
     pub fn poll_fault(&mut self) -> Option<Fault> {
-        if let Some(f) = self.handle.fault() {
-            return Some(f);
-        }
-        let stats = self.handle.stats();
-        let counts = [(stats.input_callbacks, Direction::Input), (stats.output_callbacks, Direction::Output)];
-        for (watch, (count, dir)) in self.watch.iter_mut().zip(counts) {
-            if watch.stalled(count) {
-                self.handle.set_fault(Fault::Stalled(dir));
-                return self.handle.fault();
-            }
-        }
-        None
+        crate::stats::poll_stream_pair(self.handle.cells(), &mut self.watch)
     }
 
     /// Stops both streams and returns the final counters. Waits at most about a second for the host

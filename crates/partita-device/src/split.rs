@@ -28,9 +28,9 @@ use std::time::Instant;
 
 use crate::bridge::{CallbackTime, CallbackTimer};
 use crate::convert::{with_samples, DeviceSample};
-use crate::error::{DeviceError, Direction};
+use crate::error::DeviceError;
 use crate::host::{release, DeviceOptions, DeviceSelector, LiveDevices, SideInfo, StreamHooks};
-use crate::stats::{BridgeCells, Fault, Stats, Watchdog};
+use crate::stats::{poll_stream_pair, BridgeCells, Fault, Stats, Watchdog};
 
 /// Length of the fade-out after a stop request, ms.
 pub const STOP_FADE_MS: f64 = 20.0;
@@ -361,10 +361,6 @@ impl SplitHandle {
     pub fn fault(&self) -> Option<Fault> {
         self.shared.fault()
     }
-
-    fn set_fault(&self, fault: Fault) {
-        self.shared.set_fault(fault);
-    }
 }
 
 /// Where and how `partita capture` opens split devices.
@@ -525,18 +521,7 @@ impl SplitStream {
     /// The fault that ended the measurement's usefulness, if any: a lost device, an invalidated stream,
     /// or a stream whose callbacks stopped for a second. Call it a few times a second.
     pub fn poll(&mut self) -> Option<Fault> {
-        if let Some(f) = self.handle.fault() {
-            return Some(f);
-        }
-        let stats = self.handle.stats();
-        let counts = [(stats.input_callbacks, Direction::Input), (stats.output_callbacks, Direction::Output)];
-        for (watch, (count, dir)) in self.watch.iter_mut().zip(counts) {
-            if watch.stalled(count) {
-                self.handle.set_fault(Fault::Stalled(dir));
-                return self.handle.fault();
-            }
-        }
-        None
+        poll_stream_pair(&self.handle.shared, &mut self.watch)
     }
 
     /// Stops both streams (waiting at most about a second for the host) and returns the recording.

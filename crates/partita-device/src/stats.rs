@@ -422,6 +422,26 @@ const STALL_AFTER: std::time::Duration = std::time::Duration::from_secs(1);
 /// Grace time after start before the watchdog looks.
 const STALL_GRACE: std::time::Duration = std::time::Duration::from_secs(2);
 
+/// The fault of a pair of cpal streams, input and output: one an error callback reported, or else a stream
+/// whose callbacks stopped (`watch`, per direction, input first), recorded in `shared` as
+/// [`Fault::Stalled`].
+pub(crate) fn poll_stream_pair(shared: &BridgeCells, watch: &mut [Watchdog; 2]) -> Option<Fault> {
+    if let Some(f) = shared.fault() {
+        return Some(f);
+    }
+    let counts = [
+        (shared.callbacks_in.load(Relaxed), crate::Direction::Input),
+        (shared.callbacks_out.load(Relaxed), crate::Direction::Output),
+    ];
+    for (watch, (count, dir)) in watch.iter_mut().zip(counts) {
+        if watch.stalled(count) {
+            shared.set_fault(Fault::Stalled(dir));
+            return shared.fault();
+        }
+    }
+    None
+}
+
 /// Finds a stream whose callbacks stopped: its callback count has not moved for a second, two seconds or
 /// more after the start. The control thread feeds it the count at each poll.
 #[derive(Debug, Clone, Copy)]
