@@ -12,6 +12,7 @@
 
 #![cfg(feature = "jack")]
 
+use std::f64::consts::PI;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
 use std::time::{Duration, Instant};
@@ -325,14 +326,8 @@ fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
     let h = known_room();
     let (room, room_latency) = start_room(&h);
     let ir_path = dir.join("ir.wav");
-    let jack = |tool: &str, from: &str, to: &str| {
-        Command::new(tool)
-            .args([from, to])
-            .env("JACK_DEFAULT_SERVER", &server.name)
-            .env("JACK_NO_START_SERVER", "1")
-            .status()
-            .is_ok_and(|s| s.success())
-    };
+    // Connects ports from the outside, as a patchbay would (a client of its own, never activated).
+    let (patchbay, _) = jack::Client::new("patchbay", jack::ClientOptions::NO_START_SERVER).expect("patchbay");
     let run = || {
         let mut cmd = partita(&server.name);
         cmd.args(["capture", "--host", "jack", "--split", "--duration-s", "2", "--silence-s", "1", "--takes", "2"])
@@ -342,15 +337,12 @@ fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
         let base = format!("cpal_client_{}", running.child.id());
         let connected = Instant::now();
         let (out_port, in_port) = (format!("{base}_out:out_0"), format!("{base}_in:in_0"));
-        let wired = std::thread::scope(|s| {
-            let a = s.spawn(|| jack("jack_connect", &out_port, "room:in_1"));
-            let b = s.spawn(|| jack("jack_connect", "room:out_1", &in_port));
-            a.join().unwrap() && b.join().unwrap()
-        });
+        let wired = patchbay.connect_ports_by_name(&out_port, "room:in_1").is_ok()
+            && patchbay.connect_ports_by_name("room:out_1", &in_port).is_ok();
         eprintln!("connected the room in {:?}", connected.elapsed());
         let (log, out) = running.finish();
         eprintln!("{log}");
-        assert!(wired, "jack_connect {out_port} / {in_port}: {log}");
+        assert!(wired, "connecting {out_port} / {in_port}: {log}");
         assert!(out.status.success(), "{log}");
         (String::from_utf8(out.stdout).unwrap(), log)
     };
@@ -383,6 +375,91 @@ fn capture_on_separate_streams_recovers_the_room_and_finds_one_clock() {
         assert!(d.as_f64().is_none_or(|d| d < -60.0), "{d}");
     }
     check_recovered(&v, &ir_path, &h);
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// A JACK client `stretch` (`in_1` -> `out_1`) that plays its input back on a clock `1 + skew` times as
+/// fast as the server's: output frame n is the input at frame (n - 128) / (1 + skew), interpolated by a
+/// Blackman-windowed sinc of 32 taps each side (128 frames of delay keep the taps inside what has arrived,
+/// for the few seconds of a test). What a recorder on a second crystal captures.
+struct Stretch {
+    inp: jack::Port<jack::AudioIn>,
+    out: jack::Port<jack::AudioOut>,
+    history: Vec<f32>,
+    n: u64,
+    skew: f64,
+}
+
+impl jack::ProcessHandler for Stretch {
+    fn process(&mut self, _: &jack::Client, ps: &jack::ProcessScope) -> jack::Control {
+        const HALF: i64 = 32;
+        let room = self.history.capacity() - self.history.len();
+        let x = self.inp.as_slice(ps);
+        self.history.extend_from_slice(&x[..x.len().min(room)]);
+        for y in self.out.as_mut_slice(ps) {
+            let t = (self.n as f64 - 128.0) / (1.0 + self.skew);
+            let c = t.floor() as i64;
+            let mut acc = 0.0f64;
+            for j in (c - HALF + 1)..=(c + HALF) {
+                let Some(&v) = usize::try_from(j).ok().and_then(|j| self.history.get(j)) else { continue };
+                let d = t - j as f64;
+                let u = (d + HALF as f64) / (2.0 * HALF as f64);
+                let w = 0.42 - 0.5 * (2.0 * PI * u).cos() + 0.08 * (4.0 * PI * u).cos();
+                let sinc = if d == 0.0 { 1.0 } else { (PI * d).sin() / (PI * d) };
+                acc += f64::from(v) * sinc * w;
+            }
+            *y = acc as f32;
+            self.n += 1;
+        }
+        jack::Control::Continue
+    }
+}
+
+/// Separate streams on clocks 50 ppm apart (the `stretch` client between them): capture measures the skew
+/// within 0.5 ppm of the stretch's (the room-level test, crates/partita-room/tests/align.rs, checks the
+/// estimate against scipy.signal.resample; this checks the command end to end), warns that it is above
+/// 10 ppm, keeps the takes evenly spaced, and still writes the IR.
+#[test]
+fn capture_on_separate_streams_measures_and_warns_of_a_clock_skew() {
+    let _serial = serial();
+    let Some(server) = jack_or_skip("capture_on_separate_streams_measures_and_warns_of_a_clock_skew", PERIOD) else {
+        return;
+    };
+    let dir = scratch("skew");
+    server.make_default();
+    let skew_ppm = 50.0;
+    let (client, _) = jack::Client::new("stretch", jack::ClientOptions::NO_START_SERVER).expect("stretch client");
+    let stretch = Stretch {
+        inp: client.register_port("in_1", jack::AudioIn::default()).unwrap(),
+        out: client.register_port("out_1", jack::AudioOut::default()).unwrap(),
+        history: Vec::with_capacity(48_000 * 30),
+        n: 0,
+        skew: skew_ppm * 1e-6,
+    };
+    let stretch = client.activate_async((), stretch).expect("stretch starts");
+    let ir_path = dir.join("ir.wav");
+    let mut cmd = partita(&server.name);
+    cmd.args(["capture", "--host", "jack", "--split", "--duration-s", "2", "--silence-s", "1", "--takes", "3"])
+        .args(["--json", "-o"])
+        .arg(&ir_path);
+    let running = Running::until(&mut cmd, |l| l.contains("separate streams"));
+    let base = format!("cpal_client_{}", running.child.id());
+    let c = stretch.as_client();
+    c.connect_ports_by_name(&format!("{base}_out:out_0"), "stretch:in_1").expect("connect the output");
+    c.connect_ports_by_name("stretch:out_1", &format!("{base}_in:in_0")).expect("connect the input");
+    let (log, out) = running.finish();
+    drop(stretch);
+    eprintln!("{log}");
+    assert!(out.status.success(), "{log}");
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let got = v["clock_skew_ppm"].as_f64().unwrap();
+    let residual = v["take_spacing_residual_frames"].as_f64().unwrap();
+    eprintln!("stretch {skew_ppm} ppm: capture measured {got:+.4} ppm, residual {residual:.4} frames");
+    assert!((got - skew_ppm).abs() < 0.5, "{got}");
+    assert!(residual < 0.1, "{residual}");
+    assert!(log.contains("warning: the devices' clocks differ by 50.0 ppm (above 10 ppm)"), "{log}");
+    assert!(!log.contains("warning: the takes differ"), "{log}");
+    assert!(ir_path.exists());
     let _ = std::fs::remove_dir_all(&dir);
 }
 
