@@ -35,8 +35,9 @@ enum Command {
     Sweep(cmd::sweep::SweepArgs),
     /// Recover an impulse response from a recording of a sweep written by `partita sweep`.
     Deconvolve(cmd::deconvolve::DeconvolveArgs),
-    /// Measure a room in one step: play the sweep and record the microphone through one JACK client, write the
-    /// impulse response and print its analysis (needs the `jack` feature).
+    /// Measure a room in one step: play the sweep, record the microphone, write the impulse response and
+    /// print its analysis (one JACK client with --host jack; separate streams on the other hosts; needs the
+    /// `live` feature)
     Capture(cmd::capture::CaptureArgs),
     /// Room-acoustic parameters of an impulse response per octave band: EDT, T20, T30, C50, C80, D50, Ts.
     Analyze(cmd::analyze::AnalyzeArgs),
