@@ -18,7 +18,7 @@ pub const CLIP_DBFS: f64 = -1.0;
 /// Arguments of `partita deconvolve`.
 #[derive(Debug, Args)]
 pub struct DeconvolveArgs {
-    /// The recording (WAV, any channel count): from the start of playback of the sweep file to its end.
+    /// The recording (WAV, up to 1024 channels): from the start of playback of the sweep file to its end.
     #[arg(value_name = "REC.wav")]
     recording: PathBuf,
     /// The sweep's sidecar written by `partita sweep` (the sweep is regenerated and its hash checked).

@@ -3,9 +3,10 @@
 //! WAV files in and out, and loading and conditioning of impulse responses for the [`partita_core`] engine.
 //!
 //! - Reading ([`read_wav`], [`read_wav_info`]): integer PCM 8/16/24/32-bit and IEEE float 32/64-bit, plain or
-//!   `WAVE_FORMAT_EXTENSIBLE`, any channel count, to planar f32 ([`Audio`]). Integer samples are scaled as
-//!   value / 2^(bits-1). Every malformed file gets one [`IoError`] naming the file and the fault, never a
-//!   panic; files whose decoded samples would exceed [`MAX_DECODED_BYTES`] are refused before allocating.
+//!   `WAVE_FORMAT_EXTENSIBLE`, up to [`MAX_WAV_CHANNELS`] (1024) channels, to planar f32 ([`Audio`]). Integer
+//!   samples are scaled as value / 2^(bits-1). Every malformed file gets one [`IoError`] naming the file and
+//!   the fault, never a panic; files whose decoded samples would exceed [`MAX_DECODED_BYTES`] are refused
+//!   before allocating.
 //! - Writing ([`write_wav`], [`write_wav_atomic`]): 32-bit float, or 24/16-bit PCM with TPDF [`Dither`]
 //!   (on by default), through hound.
 //! - Conditioning ([`condition`], [`load_ir`]): resampling to the engine's rate with the frequency response

@@ -35,13 +35,14 @@ pub const MAX_WAV_CHANNELS: u16 = 1024;
 ///
 /// # Errors
 /// Any [`IoError`] about the file's structure or format: not a WAV, truncated headers or chunks, a data chunk
-/// longer than the file, 0 channels, 0 Hz, unsupported format tags or bit depths, a bad block alignment.
+/// longer than the file, 0 channels or more than [`MAX_WAV_CHANNELS`], 0 Hz, unsupported format tags or bit
+/// depths, a bad block alignment.
 pub fn read_wav_info(path: &Path) -> Result<WavInfo, IoError> {
     open(path).map(|(_, info)| info)
 }
 
 /// Reads a whole WAV file into planar f32: PCM 8/16/24/32-bit, IEEE float 32/64-bit, plain or
-/// `WAVE_FORMAT_EXTENSIBLE`, any channel count. Allocates the samples.
+/// `WAVE_FORMAT_EXTENSIBLE`, up to [`MAX_WAV_CHANNELS`] channels. Allocates the samples.
 ///
 /// Integer samples become value / 2^(bits-1); 64-bit floats are rounded to f32. Refuses files whose decoded
 /// samples would exceed [`MAX_DECODED_BYTES`], and float files holding NaN or infinity. A trailing partial
