@@ -24,7 +24,10 @@ pub struct PlanArgs {
     /// Engine block size in frames (the latency without --zero-latency) [default: 64].
     #[arg(long, value_name = "N", conflicts_with = "latency_ms")]
     block: Option<usize>,
-    /// Latency budget in milliseconds: picks the block size and mode with the most CPU headroom.
+    /// Latency budget in milliseconds: picks the cheapest plan (a block size, or zero latency with a
+    /// direct-form head) whose latency fits the budget and whose predicted heaviest call fits the headroom
+    /// (--headroom-pct; 8% under a fixed --schedule); when none fits it, the one with the lightest heaviest
+    /// call.
     #[arg(long, value_name = "X", allow_negative_numbers = true)]
     latency_ms: Option<f64>,
     /// Zero latency: a direct-form head makes the output sample-accurate.
