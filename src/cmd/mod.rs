@@ -79,7 +79,7 @@ pub struct ScheduleArgs {
     #[arg(long, value_name = "S", default_value = "auto")]
     pub schedule: ScheduleChoice,
     /// The share of a host call's deadline, in percent, the predicted heaviest call may take (auto only;
-    /// --latency-ms uses it with every schedule).
+    /// under a fixed --schedule, --latency-ms judges plans against the default).
     #[arg(long, value_name = "PCT", default_value_t = partita_core::DEFAULT_HEADROOM_PCT, allow_negative_numbers = true)]
     pub headroom_pct: f64,
 }
