@@ -66,6 +66,9 @@ int main(int argc, char **argv) {
     options.struct_size = sizeof options;
     options.routing = channels == 2 ? PARTITA_ROUTING_STEREO : PARTITA_ROUTING_AUTO;
     options.max_host_frames = CALL_FRAMES;
+    /* This program calls the engine as fast as it can (a file render, not a live stream): offline, worker
+     * results are waited for instead of dropped as late. A live host leaves it 0 and sets host_period_frames. */
+    options.offline = 1;
     /* A NULL plan: the automatic plan for the IR's length at its rate (0: keep the file's rate). Plan with
      * partita_plan_create for the longest IR you will swap in when the second one is longer. */
     code = partita_engine_create_from_wav(NULL, argv[1], 0, &options, &engine);
