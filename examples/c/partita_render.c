@@ -22,14 +22,18 @@ struct swap_job {
 };
 
 /* The control thread: prepare the second IR (reads, resamples and transforms it: not real-time safe),
- * queue the swap with a 50 ms crossfade, the main thread collects the swap event afterwards (it frees the old IR). */
+ * queue the swap with a 50 ms crossfade, the main thread collects the swap event afterwards (it frees the old IR).
+ * The detailed error message is per thread, so a failure is reported here. */
 static void *swap_thread(void *arg) {
     struct swap_job *job = (struct swap_job *)arg;
     PartitaPrepared *ir = NULL;
     job->code = partita_control_prepare_wav(job->control, job->path, PARTITA_ROUTING_AUTO, &ir);
-    if (job->code != PARTITA_OK) return NULL;
-    job->code = partita_control_swap(job->control, &ir, 2400);
-    if (job->code != PARTITA_OK) partita_prepared_destroy(&ir);
+    if (job->code == PARTITA_OK) {
+        job->code = partita_control_swap(job->control, &ir, 2400);
+        if (job->code != PARTITA_OK) partita_prepared_destroy(&ir);
+    }
+    if (job->code != PARTITA_OK)
+        fprintf(stderr, "swap to %s: %s: %s\n", job->path, partita_error_name(job->code), partita_last_error_message());
     return NULL;
 }
 
@@ -46,7 +50,7 @@ int main(int argc, char **argv) {
     PartitaEvent ev;
     struct swap_job job;
     pthread_t thread;
-    int started = 0;
+    int started = 0, swapped = 0;
     long total = 0, frames_in_file, done = 0;
     FILE *in, *out;
     float *x, *y;
@@ -58,6 +62,10 @@ int main(int argc, char **argv) {
         return 2;
     }
     channels = (uint32_t)atoi(argv[3]);
+    if (channels == 0) {
+        fprintf(stderr, "CHANNELS must be a positive number, got %s\n", argv[3]);
+        return 2;
+    }
     if (partita_abi_version() != PARTITA_ABI_VERSION) {
         fprintf(stderr, "library ABI %u, header %u\n", partita_abi_version(), PARTITA_ABI_VERSION);
         return 1;
@@ -76,6 +84,14 @@ int main(int argc, char **argv) {
     memset(&info, 0, sizeof info);
     info.struct_size = sizeof info;
     partita_engine_info(engine, &info);
+    if (channels == 1 && info.inputs == 2) {
+        /* A 2-channel IR is stereo by default; with a mono input it is mono to stereo (left, right). */
+        partita_engine_destroy(&engine);
+        options.routing = PARTITA_ROUTING_MONO_TO_STEREO;
+        code = partita_engine_create_from_wav(NULL, argv[1], 0, &options, &engine);
+        if (code != PARTITA_OK) return fail("engine", code);
+        partita_engine_info(engine, &info);
+    }
     if (info.inputs != channels) {
         fprintf(stderr, "the IR's routing takes %u input channels, not %u\n", info.inputs, channels);
         partita_engine_destroy(&engine);
@@ -114,14 +130,20 @@ int main(int argc, char **argv) {
         }
     }
     if (started) pthread_join(thread, NULL);
-    if (job.code != PARTITA_OK) fprintf(stderr, "swap: %s\n", partita_error_name(job.code));
     memset(&ev, 0, sizeof ev);
     ev.struct_size = sizeof ev;
     while (partita_control_next_event(control, &ev) == PARTITA_OK && ev.kind != PARTITA_EVENT_NONE) {
-        if (ev.kind == PARTITA_EVENT_SWAP)
+        if (ev.kind == PARTITA_EVENT_SWAP) {
+            swapped = 1;
             printf("swapped IR: crossfade over output frames %llu..%llu\n",
                    (unsigned long long)ev.swap_fade_start, (unsigned long long)ev.swap_fade_end);
+        }
     }
+    if (!swapped)
+        printf("no swap happened: %s\n",
+               !started                  ? "the swap thread did not start"
+               : job.code != PARTITA_OK ? "the second IR was refused (above)"
+                                         : "the swap did not complete before the render ended");
     printf("rendered %ld frames, latency %llu frames\n", done, (unsigned long long)info.latency_frames);
     fclose(in);
     fclose(out);

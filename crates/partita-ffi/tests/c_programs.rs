@@ -116,9 +116,10 @@ fn c_programs_under_address_sanitizer() {
 }
 
 /// The C example in `examples/c/` builds against the header and the shared library, and renders a raw
-/// file through a WAV IR long enough for the automatic plan to have levels larger than the call: the output
-/// has the input's frames plus the latency and one second of tail, and every sample is the direct
-/// convolution's (so no level's contribution went missing while the example ran faster than real time).
+/// mono file through a WAV IR long enough for the automatic plan to have levels larger than the call, a
+/// 1-channel IR (mono) and a 2-channel one (mono to stereo): the output has the input's frames plus the
+/// latency and one second of tail, and every sample is the direct convolution's (so no level's contribution
+/// went missing while the example ran faster than real time).
 #[test]
 fn c_example_builds_and_renders() {
     let lib = lib_dir();
@@ -144,6 +145,9 @@ fn c_example_builds_and_renders() {
     // One second at 48 kHz: the automatic plan puts its larger levels on workers.
     let mono = [example_ir(EXAMPLE_RATE as usize, 1)];
     render_example(&exe, &dir, "mono", &mono);
+    // A 2-channel IR with a mono input: mono to stereo, as the example's header comment promises.
+    let stereo = [example_ir(EXAMPLE_RATE as usize, 2), example_ir(EXAMPLE_RATE as usize, 3)];
+    render_example(&exe, &dir, "mono-to-stereo", &stereo);
     std::fs::remove_dir_all(&dir).ok();
 }
 
