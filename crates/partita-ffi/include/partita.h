@@ -88,7 +88,7 @@
 #define PARTITA_ERR_PANIC 13
 
 /*
- Routing: choose from the IR's channel count (1 mono, 2 mono to stereo, 4 true stereo).
+ Routing: choose from the IR's channel count (1 mono, 2 stereo, 4 true stereo); other counts need a routing.
  */
 #define PARTITA_ROUTING_AUTO 0
 

@@ -71,7 +71,7 @@ pub const PARTITA_ERR_PROCESS: i32 = 12;
 /// A panic inside the library was caught; the handle may be in an inconsistent state: destroy it.
 pub const PARTITA_ERR_PANIC: i32 = 13;
 
-/// Routing: choose from the IR's channel count (1 mono, 2 mono to stereo, 4 true stereo).
+/// Routing: choose from the IR's channel count (1 mono, 2 stereo, 4 true stereo); other counts need a routing.
 pub const PARTITA_ROUTING_AUTO: i32 = 0;
 /// One input, one output, a 1-channel IR.
 pub const PARTITA_ROUTING_MONO: i32 = 1;
