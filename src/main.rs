@@ -11,6 +11,7 @@ use clap::{Parser, Subcommand};
 mod cmd;
 #[cfg(feature = "live")]
 mod signals;
+mod sigpipe;
 
 /// Real-time partitioned FFT convolution of audio with measured impulse responses.
 #[derive(Debug, Parser)]
@@ -49,6 +50,10 @@ enum Command {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    if !matches!(cli.command, Command::Monitor(_) | Command::Devices(_) | Command::Capture(_)) {
+        // Not a live command: `partita analyze ir.wav | head -1` ends quietly instead of panicking.
+        sigpipe::end_on_closed_pipe();
+    }
     let result = match cli.command {
         Command::Demo(args) => cmd::demo::run(args),
         Command::Render(args) => cmd::render::run(args),

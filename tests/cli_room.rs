@@ -226,3 +226,31 @@ fn deconvolve_refuses_a_changed_sidecar_and_missing_files() {
     fails(&partita(&["deconvolve", s(&other_rate), "--sweep", s(&json), "-o", s(&ir)]), &["44100 Hz", "48000 Hz"]);
     fails(&partita(&["analyze", s(&dir.join("none.wav"))]), &["none.wav"]);
 }
+
+/// `partita analyze ir.wav | head -1`: a reader that closes its end before the table is printed ends the
+/// command quietly (SIGPIPE, as Unix filters end), without the panic std's print macros raise on EPIPE.
+#[cfg(unix)]
+#[test]
+fn analyze_into_a_closed_pipe_ends_quietly() {
+    use std::os::unix::process::ExitStatusExt;
+    use std::process::Stdio;
+
+    let ir = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/timber-barn.wav");
+    let mut child = Command::new(env!("CARGO_BIN_EXE_partita"))
+        .args(["analyze", s(&ir)])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("run partita");
+    // The reader goes away at once, so the command's first line already meets a closed pipe.
+    drop(child.stdout.take());
+    let out = child.wait_with_output().expect("wait for partita");
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(!err.contains("panicked"), "partita panicked on a closed stdout: {err}");
+    assert!(err.is_empty(), "partita wrote to stderr: {err}");
+    assert!(
+        out.status.signal() == Some(libc::SIGPIPE) || out.status.success(),
+        "ended by SIGPIPE or successfully expected, got {:?}",
+        out.status
+    );
+}
