@@ -84,10 +84,10 @@ pub struct MonitorArgs {
     /// JACK: leave partita's ports unconnected (connect them with a patchbay or jack_connect).
     #[arg(long)]
     no_connect: bool,
-    /// Level of the convolved (wet) signal, linear [default: 1].
+    /// Level of the convolved (wet) signal, linear.
     #[arg(long, value_name = "W", default_value_t = 1.0, allow_negative_numbers = true)]
     wet: f64,
-    /// Level of the input (dry) signal, linear, delayed to line up with the wet signal [default: 0].
+    /// Level of the input (dry) signal, linear, delayed to line up with the wet signal.
     #[arg(long, value_name = "D", default_value_t = 0.0, allow_negative_numbers = true)]
     dry: f64,
     /// IR normalization: none (the exact file), peak or energy.
