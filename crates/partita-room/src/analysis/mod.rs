@@ -152,11 +152,24 @@ impl fmt::Display for AnalysisError {
                 f,
                 "evaluation range {start_db} dB to {end_db} dB does not fall; give 0 >= start > end, both finite"
             ),
-            Self::DecayTooShallow { needed_db, reached_db } => write!(
-                f,
-                "the decay curve reaches only {reached_db:.1} dB but the range needs {needed_db:.1} dB; \
-                 use a longer response or a shorter range (T20, EDT)"
-            ),
+            Self::DecayTooShallow { needed_db, reached_db } => {
+                write!(
+                    f,
+                    "the decay curve reaches only {reached_db:.1} dB but the range needs {needed_db:.1} dB; \
+                     use a longer response"
+                )?;
+                // Only the standard ranges that end above the level this one needs are any help: none for
+                // EDT, EDT for T20.
+                let shorter: Vec<&str> = [(DecayRange::T20, "T20"), (DecayRange::Edt, "EDT")]
+                    .into_iter()
+                    .filter(|(range, _)| range.levels_db().1 > *needed_db)
+                    .map(|(_, name)| name)
+                    .collect();
+                if !shorter.is_empty() {
+                    write!(f, " or a shorter range ({})", shorter.join(", "))?;
+                }
+                Ok(())
+            }
             Self::TooFewPoints { points } => write!(
                 f,
                 "only {points} samples lie in the evaluation range; the decay is too fast for this sample rate"
@@ -212,5 +225,15 @@ mod tests {
             clarity_db(&[1.0f32; 10], 48_000.0, 80.0),
             Err(AnalysisError::TooShort { needed_frames: 3840, frames: 10 })
         ));
+    }
+
+    /// A too shallow decay suggests only the standard ranges that end above the level it missed.
+    #[test]
+    fn a_shallow_decay_suggests_only_shorter_ranges() {
+        let message = |needed_db| AnalysisError::DecayTooShallow { needed_db, reached_db: -8.0 }.to_string();
+        assert!(message(-35.0).ends_with("use a longer response or a shorter range (T20, EDT)"), "{}", message(-35.0));
+        assert!(message(-25.0).ends_with("use a longer response or a shorter range (EDT)"), "{}", message(-25.0));
+        assert!(message(-10.0).ends_with("use a longer response"), "{}", message(-10.0));
+        assert!(message(-5.0).ends_with("use a longer response"), "{}", message(-5.0));
     }
 }

@@ -120,7 +120,9 @@ impl fmt::Display for Flag {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::DynamicRange { available_db, needed_db } => {
-                write!(f, "dynamic range {available_db:.1} dB < {needed_db:.0} dB needed")
+                // Rounded down, so a value just short of the need (19.96 dB) never reads as the need itself.
+                let shown_db = (available_db * 10.0).floor() / 10.0;
+                write!(f, "dynamic range {shown_db:.1} dB < {needed_db:.0} dB needed")
             }
             Self::FilterRinging { bandwidth_times_t, needed } => {
                 write!(f, "filter ringing: bandwidth x T = {bandwidth_times_t:.1} < {needed:.0}")
@@ -340,5 +342,19 @@ fn energy_parameter(
             Ok((energy[1..].iter().sum::<f64>() + tail) / total / fs)
         }
         _ => unreachable!("reverberation times are fitted"),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The flag's dynamic range is rounded down: a range just short of the need never shows as the need.
+    #[test]
+    fn a_dynamic_range_flag_never_shows_the_needed_value() {
+        let flag = |available_db| Flag::DynamicRange { available_db, needed_db: 20.0 }.to_string();
+        assert_eq!(flag(19.96), "dynamic range 19.9 dB < 20 dB needed");
+        assert_eq!(flag(19.999_9), "dynamic range 19.9 dB < 20 dB needed");
+        assert_eq!(flag(12.34), "dynamic range 12.3 dB < 20 dB needed");
     }
 }
