@@ -22,6 +22,7 @@ use partita_device::{DuplexOptions, DuplexStream, JackDuplex, SafetyOptions};
 use partita_io::read_wav;
 use partita_room::analysis::{analyze, AnalysisOptions, Parameter};
 use partita_testkit::jack_server::{jack_or_skip, serial};
+use partita_testkit::spectrum;
 use realfft::RealFftPlanner;
 
 const RATE: u32 = 48_000;
@@ -114,15 +115,6 @@ fn start_room(h: &[f32]) -> (DuplexStream, usize) {
     assert_eq!(duplex.client_name(), "room");
     let stream = duplex.start(engine, Box::new(|_, _| Err("no rebuild in this test".into()))).expect("room starts");
     (stream, latency)
-}
-
-fn spectrum(x: &[f32], n: usize) -> Vec<realfft::num_complex::Complex64> {
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(n);
-    let mut buf: Vec<f64> = x.iter().map(|&v| f64::from(v)).collect();
-    buf.resize(n, 0.0);
-    let mut out = fft.make_output_vec();
-    fft.process(&mut buf, &mut out).unwrap();
-    out
 }
 
 /// `h` limited to 20 Hz .. 20 kHz by zeroing the other bins of an `n`-point FFT (`h` placed 0.5 s in, so

@@ -13,7 +13,7 @@ use partita_core::{ImpulseResponse, Routing, Shape};
 use partita_room::align::{aligned_takes, locate_takes, AlignError, TakeAlignment};
 use partita_room::deconvolve::{raw_response, Method};
 use partita_room::sweep::{SweepKind, SweepSpec};
-use realfft::RealFftPlanner;
+use partita_testkit::spectrum;
 
 const FS: u32 = 48_000;
 /// Frames the recorder runs before the player starts.
@@ -125,15 +125,6 @@ fn the_skew_of_a_second_clock_is_measured_within_half_a_ppm() {
             assert!((arrival - want).abs() < smear, "take {k}: {arrival} against {want} (bound {smear:.1})");
         }
     }
-}
-
-fn spectrum(x: &[f32], n: usize) -> Vec<realfft::num_complex::Complex64> {
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(n);
-    let mut buf: Vec<f64> = x.iter().map(|&v| f64::from(v)).collect();
-    buf.resize(n, 0.0);
-    let mut out = fft.make_output_vec();
-    fft.process(&mut buf, &mut out).unwrap();
-    out
 }
 
 /// The largest in-band (2 f1 to f2 / 2) difference in dB between the responses recovered from `a` and `b`.

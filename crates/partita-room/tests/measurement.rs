@@ -17,7 +17,7 @@ use partita_room::analysis::{
 use partita_room::deconvolve::{deconvolve, raw_response, DeconvolveOptions, Method};
 use partita_room::room::{render_room_ir, RoomSpec, DEMO_SEED};
 use partita_room::sweep::{SweepKind, SweepSpec};
-use realfft::RealFftPlanner;
+use partita_testkit::spectrum;
 
 fn python(what: &str) -> Option<PathBuf> {
     partita_testkit::reference_python(what)
@@ -427,15 +427,6 @@ fn known_response() -> Vec<f32> {
         *slot = y + 0.5 * x;
     }
     h.iter().map(|&v| v as f32).collect()
-}
-
-fn spectrum(x: &[f32], n: usize) -> Vec<realfft::num_complex::Complex64> {
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(n);
-    let mut buf: Vec<f64> = x.iter().map(|&v| v as f64).collect();
-    buf.resize(n, 0.0);
-    let mut out = fft.make_output_vec();
-    fft.process(&mut buf, &mut out).unwrap();
-    out
 }
 
 #[test]

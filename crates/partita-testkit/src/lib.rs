@@ -136,6 +136,17 @@ impl ErrorBound {
     }
 }
 
+/// The spectrum of `x` zero-padded (or cut) to `n` frames: bins 0 to n / 2 of a real FFT in f64, unscaled.
+/// Allocates.
+pub fn spectrum(x: &[f32], n: usize) -> Vec<realfft::num_complex::Complex64> {
+    let fft = realfft::RealFftPlanner::<f64>::new().plan_fft_forward(n);
+    let mut buf: Vec<f64> = x.iter().take(n).map(|&v| f64::from(v)).collect();
+    buf.resize(n, 0.0);
+    let mut out = fft.make_output_vec();
+    fft.process(&mut buf, &mut out).expect("buffer sizes from the plan");
+    out
+}
+
 /// The Python interpreter with the pinned reference libraries, from `PARTITA_PYTHON` (which
 /// `scripts/check` sets to its venv at `target/py`). Without it, prints a loud SKIP line naming `what`
 /// straight to stderr (so the harness does not capture it) and returns `None`; under `CI` it panics
