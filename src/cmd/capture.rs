@@ -611,18 +611,15 @@ fn record_split(
         info.input.period_text()
     );
     let handle = stream.handle().clone();
-    {
-        let stream = std::cell::RefCell::new(&mut stream);
-        wait(
-            signals,
-            (takes, take_frames),
-            || stream.borrow_mut().poll(),
-            || handle.is_done(),
-            || handle.played_frames().saturating_sub(lead_frames as u64),
-            || handle.request_stop(),
-            || {},
-        )?;
-    }
+    wait(
+        signals,
+        (takes, take_frames),
+        || stream.poll(),
+        || handle.is_done(),
+        || handle.played_frames().saturating_sub(lead_frames as u64),
+        || handle.request_stop(),
+        || {},
+    )?;
     let got = stream.finish();
     let fs = f64::from(rate);
     let periods = [info.input.period_frames, info.output.period_frames];
